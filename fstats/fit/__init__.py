@@ -1,0 +1,1 @@
+"""fit stage of fstats (see DEVELOPERS.md)."""

@@ -1,0 +1,1 @@
+"""flow stage of fstats (see DEVELOPERS.md)."""

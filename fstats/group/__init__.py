@@ -1,0 +1,1 @@
+"""group stage of fstats (see DEVELOPERS.md)."""

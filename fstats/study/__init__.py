@@ -1,0 +1,1 @@
+"""study stage of fstats (see DEVELOPERS.md)."""
