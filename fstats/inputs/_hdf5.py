@@ -1,0 +1,121 @@
+"""Low-level SNIRF (HDF5) helpers: numbered groups, texts, stim and aux groups."""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import h5py
+import numpy as np
+
+from fstats.errors import InputError
+from fstats.inputs._validate import clean_times
+from fstats.inputs.events import check_event_times
+from fstats.inputs.recording import AuxSignal, TaskTiming
+
+__all__ = ["numbered", "text", "texts", "dataset", "integer", "read_stims", "read_aux_groups"]
+
+
+def numbered(group: h5py.Group, prefix: str) -> list[str]:
+    pattern = re.compile(rf"^{prefix}(\d+)$")
+    keys = [(int(m.group(1)), k) for k in group if (m := pattern.match(k))]
+    return [k for _, k in sorted(keys)]
+
+
+def text(value) -> str:
+    if isinstance(value, np.ndarray):
+        value = value.reshape(-1)[0] if value.size else ""
+    return value.decode("utf-8") if isinstance(value, bytes) else str(value)
+
+
+def texts(dataset) -> list[str]:
+    return [text(v) for v in np.atleast_1d(dataset[()])]
+
+
+def dataset(path: Path, group: h5py.Group, name: str, what: str):
+    if name not in group or not isinstance(group[name], h5py.Dataset):
+        raise InputError(path, f"{group.name}/{name}", what, "missing")
+    return group[name]
+
+
+def integer(path: Path, group: h5py.Group, name: str) -> int:
+    value = np.asarray(dataset(path, group, name, "an integer")[()]).reshape(-1)
+    if value.size != 1 or not np.isfinite(value[0]) or value[0] != int(value[0]):
+        raise InputError(path, f"{group.name}/{name}", "one integer", value.tolist())
+    return int(value[0])
+
+
+def read_stims(path: Path, nirs: h5py.Group, start_s: float, end_s: float) -> TaskTiming | None:
+    onsets, durations, amplitudes, conditions, wheres = [], [], [], [], []
+    groups = numbered(nirs, "stim")
+    for name in groups:
+        stim = nirs[name]
+        condition = text(dataset(path, stim, "name", "a condition name")[()])
+        data = np.asarray(
+            dataset(path, stim, "data", "rows [onset, duration, amplitude]")[()], dtype=float
+        )
+        if data.size == 0:
+            continue
+        data = data.reshape(1, -1) if data.ndim == 1 else data
+        if data.ndim != 2 or data.shape[1] < 3:
+            raise InputError(
+                path,
+                f"{stim.name}/data",
+                "rows [onset, duration, amplitude]",
+                f"shape {data.shape}",
+            )
+        for row in range(data.shape[0]):
+            onsets.append(data[row, 0])
+            durations.append(data[row, 1])
+            amplitudes.append(data[row, 2])
+            conditions.append(condition)
+            wheres.append(f"{stim.name}/data, row {row + 1}")
+    if not groups:
+        return None
+    onsets, durations = np.array(onsets, dtype=float), np.array(durations, dtype=float)
+    check_event_times(
+        onsets,
+        durations,
+        path=str(path),
+        start_s=start_s,
+        end_s=end_s,
+        where=lambda i, field: f"{wheres[i]}, column {field!r}",
+    )
+    order = np.argsort(onsets, kind="stable")
+    return TaskTiming(
+        onsets_s=onsets[order],
+        durations_s=durations[order],
+        conditions=tuple(conditions[i] for i in order),
+        amplitudes=np.array(amplitudes, dtype=float)[order],
+        source=f"{path}:{nirs.name}/stim",
+    )
+
+
+def read_aux_groups(path: Path, nirs: h5py.Group, to_s: float) -> dict[str, AuxSignal]:
+    signals = {}
+    for group_name in numbered(nirs, "aux"):
+        group = nirs[group_name]
+        name = text(dataset(path, group, "name", "a signal name")[()])
+        values = np.asarray(
+            dataset(path, group, "dataTimeSeries", "signal values")[()], dtype=float
+        ).reshape(-1)
+        times = (
+            np.asarray(dataset(path, group, "time", "sample times")[()], dtype=float).reshape(-1)
+            * to_s
+        )
+        if times.size != values.size:
+            raise InputError(
+                path, f"{group.name}/time", f"{values.size} sample times", f"{times.size}"
+            )
+        if "timeOffset" in group:
+            times = times + float(np.asarray(group["timeOffset"][()]).reshape(-1)[0]) * to_s
+        times, kept, _ = clean_times(
+            times,
+            values[:, None],
+            path=str(path),
+            repairs=[],
+            where=lambda r, g=group: f"{g.name}/time, sample {r + 1}",
+        )
+        unit = text(group["dataUnit"][()]) if "dataUnit" in group else "a.u."
+        signals[name] = AuxSignal(name=name, times_s=times, values=kept[:, 0], unit=unit or "a.u.")
+    return signals

@@ -1,0 +1,390 @@
+"""SNIRF (HDF5) files holding DCS data: BFi (dataType 410) and g2 curves (dataType 401).
+
+Layout read and written (SNIRF 1.1 names; one ``/nirs`` group):
+
+``/formatVersion``
+    ``"1.1"`` on writing; required on reading.
+``/nirs/metaDataTags``
+    ``LengthUnit`` (``mm`` usually; also ``cm``, ``m``), ``TimeUnit`` (``s``, ``ms``, ``us``),
+    ``SubjectID``; fstats adds ``fstats_short_channels``, the short-separation channel names
+    joined by ``;`` (when absent, roles follow the separation threshold).
+``/nirs/data1/dataTimeSeries`` (n_times, n_measurements), ``/nirs/data1/time`` (n_times,)
+    ``time`` may also be the two-value form ``[start, step]``.  Further ``data2``, ...
+    groups must share the time base.
+``/nirs/data1/measurementList{k}``
+    ``sourceIndex``, ``detectorIndex``, ``wavelengthIndex`` (1-based), ``dataType``,
+    ``dataTypeLabel``, ``dataTypeIndex`` and ``dataUnit``.  Column ``k - 1`` of
+    ``dataTimeSeries`` is described by ``measurementList{k}``.
+``/nirs/probe``
+    ``sourcePos3D``/``detectorPos3D`` (or the ``2D`` forms) in ``LengthUnit``: a channel's
+    separation is the distance between its source and detector, converted to cm and
+    rounded to 1e-6 cm.  ``wavelengths`` (nm; NaN when unknown), ``detectorLabels`` (used as
+    channel names when unique), ``correlationTimeDelays`` (lags of g2, in ``TimeUnit``).
+``/nirs/stim{k}``
+    ``name`` (condition) and ``data`` rows ``[onset, duration, amplitude]`` in s: task events.
+``/nirs/aux{k}``
+    ``name``, ``dataTimeSeries``, ``time`` (+ ``timeOffset``), optional ``dataUnit``.
+
+A channel is one (source, detector, wavelength) triple.  Its BFi series is the one
+measurement with ``dataType`` 410 (``dataUnit`` ``cm2/s``, ``mm2/s`` - converted - or
+``relative``).  Its g2 curve is stored as one measurement per lag: ``dataType`` 401 with
+``dataTypeIndex`` = ``j`` (1-based) meaning lag ``probe/correlationTimeDelays[j - 1]``;
+the writer orders them channel by channel, lag by lag, after the BFi columns.  Measurements
+of other data types are ignored with a log message; a file with none of 401/410 is refused.
+A file with g2 but no BFi gives a Recording whose flow is all NaN
+(``provenance["flow_missing"] = True``) for the flow stage to fill.  Count rates are not
+stored.  Time stamps and values pass the checks of :mod:`fstats.inputs._validate`.
+"""
+
+from __future__ import annotations
+
+import logging
+from pathlib import Path
+
+import h5py
+import numpy as np
+
+from fstats.errors import InputError, suggest
+from fstats.inputs._hdf5 import (
+    dataset,
+    integer,
+    numbered,
+    read_aux_groups,
+    read_stims,
+    text,
+    texts,
+)
+from fstats.inputs._naming import recording_stem, stem_entities
+from fstats.inputs._validate import check_flow_values, clean_times, fill_missing, regular_grid
+from fstats.inputs.recording import (
+    SHORT_SEPARATION_THRESHOLD_CM,
+    Channel,
+    Recording,
+)
+
+__all__ = ["DCS_DATA_TYPES", "SHORT_CHANNELS_TAG", "read_snirf"]
+
+logger = logging.getLogger(__name__)
+
+#: SNIRF dataType codes fstats reads: 401 = DCS g2, 410 = DCS blood-flow index.
+DCS_DATA_TYPES: dict[int, str] = {401: "g2", 410: "BFi"}
+_OTHER_TYPES = {
+    1: "continuous-wave amplitude",
+    101: "frequency-domain AC amplitude",
+    201: "time-domain gated amplitude",
+    301: "time-domain moments",
+    99999: "processed",
+}
+_LENGTH_TO_CM = {"mm": 0.1, "cm": 1.0, "m": 100.0}
+_TIME_TO_S = {"s": 1.0, "ms": 1e-3, "us": 1e-6}
+_BFI_UNITS = {"cm2/s": ("cm2/s", 1.0), "mm2/s": ("cm2/s", 0.01), "relative": ("relative", 1.0)}
+#: metaDataTags entry (ours) listing the short-separation channels, joined by ";".
+SHORT_CHANNELS_TAG = "fstats_short_channels"
+
+
+def _unit(path: Path, meta: h5py.Group | None, tag: str, table: dict, default: str) -> float:
+    if meta is None or tag not in meta:
+        return table[default]
+    unit = text(meta[tag][()])
+    if unit not in table:
+        raise InputError(
+            path, f"{meta.name}/{tag}", f"one of {list(table)}", unit, suggest(unit, table)
+        )
+    return table[unit]
+
+
+def _positions(path: Path, probe: h5py.Group, kind: str) -> np.ndarray:
+    for name in (f"{kind}Pos3D", f"{kind}Pos2D"):
+        if name in probe:
+            return np.atleast_2d(np.asarray(probe[name][()], dtype=float))
+    raise InputError(path, f"{probe.name}/{kind}Pos3D", f"{kind} positions", "missing")
+
+
+def _time_base(path: Path, data: h5py.Group, n_times: int, to_s: float) -> np.ndarray:
+    time = np.asarray(dataset(path, data, "time", "sample times")[()], dtype=float).reshape(-1)
+    if time.size == 2 and n_times != 2:
+        time = time[0] + time[1] * np.arange(n_times)
+    if time.size != n_times:
+        raise InputError(
+            path,
+            f"{data.name}/time",
+            f"{n_times} sample times (one per row of dataTimeSeries)",
+            f"{time.size} values",
+        )
+    return time * to_s
+
+
+def read_snirf(
+    path: str | Path, *, short_threshold_cm: float = SHORT_SEPARATION_THRESHOLD_CM
+) -> Recording:
+    """A recording from a SNIRF file with DCS BFi (410) and/or g2 (401) data.
+
+    Parameters
+    ----------
+    path : str or Path
+        The ``.snirf`` file (see the module notes for the layout).
+    short_threshold_cm : float, default=1.5
+        Channels at or below this separation (cm) are short-separation channels, unless
+        the file lists its short channels in ``metaDataTags/fstats_short_channels``.
+
+    Returns
+    -------
+    Recording
+        Flow (BFi, cm²/s, or relative), g2 (n_times, n_channels, n_lags) and lags (s) if
+        present, stim groups as events, aux groups as auxiliary signals.
+
+    Raises
+    ------
+    InputError
+        Naming the file and the HDF5 group or dataset at fault.
+    """
+    path = Path(path)
+    if not path.is_file():
+        raise InputError(path, "file", "an existing SNIRF file", "no such file")
+    try:
+        handle = h5py.File(path, "r")
+    except OSError:
+        raise InputError(path, "file", "an HDF5 (SNIRF) file", "unreadable or not HDF5") from None
+    with handle:
+        return _read(path, handle, short_threshold_cm)
+
+
+def _read(path: Path, handle: h5py.File, short_threshold_cm: float) -> Recording:
+    if "formatVersion" not in handle:
+        raise InputError(path, "/formatVersion", "a SNIRF format version", "missing")
+    groups = ["nirs"] if "nirs" in handle else numbered(handle, "nirs")
+    if not groups:
+        raise InputError(path, "/nirs", "a /nirs group", sorted(handle))
+    if len(groups) > 1:
+        logger.warning("%s: reading /%s only of %d nirs groups", path, groups[0], len(groups))
+    nirs = handle[groups[0]]
+    meta = nirs.get("metaDataTags")
+    to_cm = _unit(path, meta, "LengthUnit", _LENGTH_TO_CM, "mm")
+    to_s = _unit(path, meta, "TimeUnit", _TIME_TO_S, "s")
+    blocks = numbered(nirs, "data")
+    if not blocks:
+        raise InputError(path, f"{nirs.name}/data1", "a data group with dataTimeSeries", "none")
+    if "probe" not in nirs:
+        raise InputError(path, f"{nirs.name}/probe", "a probe group", "missing")
+    probe = nirs["probe"]
+    times, columns, keys = None, [], []  # keys: (kind, channel key, lag index, unit, where)
+    for block in blocks:
+        data = nirs[block]
+        series = np.asarray(
+            dataset(path, data, "dataTimeSeries", "measurements (n_times, n_measurements)")[()],
+            dtype=float,
+        )
+        if series.ndim == 1:
+            series = series[:, None]
+        if series.ndim != 2 or series.shape[0] == 0:
+            raise InputError(
+                path, f"{data.name}/dataTimeSeries", "a 2-D array with data", series.shape
+            )
+        block_times = _time_base(path, data, series.shape[0], to_s)
+        if times is None:
+            times = block_times
+        elif not np.array_equal(times, block_times):
+            raise InputError(
+                path,
+                f"{data.name}/time",
+                f"the time base of {nirs.name}/data1",
+                "different sample times",
+            )
+        lists = numbered(data, "measurementList")
+        if len(lists) != series.shape[1]:
+            raise InputError(
+                path,
+                f"{data.name}",
+                f"{series.shape[1]} measurementList groups (one per dataTimeSeries column)",
+                f"{len(lists)}",
+            )
+        for column, name in enumerate(lists):
+            entry = data[name]
+            data_type = integer(path, entry, "dataType")
+            if data_type not in DCS_DATA_TYPES:
+                logger.info("%s: ignoring %s (dataType %d)", path, entry.name, data_type)
+                continue
+            key = tuple(
+                integer(path, entry, f) if f in entry else 1
+                for f in ("sourceIndex", "detectorIndex", "wavelengthIndex")
+            )
+            index = integer(path, entry, "dataTypeIndex") if "dataTypeIndex" in entry else 1
+            unit = text(entry["dataUnit"][()]) if "dataUnit" in entry else ""
+            columns.append(series[:, column])
+            keys.append((DCS_DATA_TYPES[data_type], key, index, unit, entry.name))
+    if not keys:
+        found = sorted(
+            {
+                integer(path, nirs[b][m], "dataType")
+                for b in blocks
+                for m in numbered(nirs[b], "measurementList")
+            }
+        )
+        names = [_OTHER_TYPES.get(t, str(t)) for t in found]
+        raise InputError(
+            path,
+            f"{nirs.name}/data1/measurementList1/dataType",
+            "DCS measurements (dataType 401 g2 or 410 BFi)",
+            found,
+            hint=f"this file holds {', '.join(names) or 'no'} data",
+        )
+    return _assemble(path, nirs, probe, meta, times, columns, keys, to_cm, to_s, short_threshold_cm)
+
+
+def _channels(path, probe, meta, keys, to_cm, short_threshold_cm):
+    channel_keys = list(dict.fromkeys(k[1] for k in sorted(keys, key=lambda k: k[0] != "BFi")))
+    sources, detectors = _positions(path, probe, "source"), _positions(path, probe, "detector")
+    wavelengths = (
+        np.asarray(probe["wavelengths"][()], dtype=float).reshape(-1)
+        if "wavelengths" in probe
+        else np.array([np.nan])
+    )
+    labels = texts(probe["detectorLabels"]) if "detectorLabels" in probe else []
+    names = []
+    for s, d, w in channel_keys:
+        for index, table, what in (
+            (s, sources, "sourceIndex"),
+            (d, detectors, "detectorIndex"),
+            (w, wavelengths, "wavelengthIndex"),
+        ):
+            if not 1 <= index <= len(table):
+                raise InputError(path, f"measurementList {what}", f"1..{len(table)}", index)
+        names.append(labels[d - 1] if len(labels) >= d else f"S{s}-D{d}")
+    if len(set(names)) < len(names):
+        names = [f"S{s}-D{d}-W{w}" for s, d, w in channel_keys]
+    short = None
+    if meta is not None and SHORT_CHANNELS_TAG in meta:
+        short = {n for n in text(meta[SHORT_CHANNELS_TAG][()]).split(";") if n}
+    channels = []
+    for name, (s, d, w) in zip(names, channel_keys, strict=True):
+        dims = min(sources.shape[1], detectors.shape[1])
+        distance = np.linalg.norm(sources[s - 1, :dims] - detectors[d - 1, :dims]) * to_cm
+        separation = round(float(distance), 6)
+        if not separation > 0:
+            raise InputError(
+                path,
+                f"{probe.name}/detectorPos3D",
+                f"detector {d} apart from source {s}",
+                "zero separation",
+            )
+        wavelength = float(wavelengths[w - 1])
+        channels.append(
+            Channel(
+                name=name,
+                separation_cm=separation,
+                is_short=(name in short) if short is not None else separation <= short_threshold_cm,
+                wavelength_nm=wavelength if np.isfinite(wavelength) else None,
+            )
+        )
+    return channel_keys, tuple(channels)
+
+
+def _assemble(path, nirs, probe, meta, times, columns, keys, to_cm, to_s, short_threshold_cm):
+    channel_keys, channels = _channels(path, probe, meta, keys, to_cm, short_threshold_cm)
+    n_times, n_channels = times.size, len(channels)
+    flow = np.full((n_times, n_channels), np.nan)
+    has_flow = np.zeros(n_channels, dtype=bool)
+    units = set()
+    g2_keys = [k for k in keys if k[0] == "g2"]
+    lags = None
+    if g2_keys:
+        if "correlationTimeDelays" not in probe:
+            raise InputError(
+                path,
+                f"{probe.name}/correlationTimeDelays",
+                "lag times of the g2 (dataType 401) measurements",
+                "missing",
+            )
+        lags = np.asarray(probe["correlationTimeDelays"][()], dtype=float).reshape(-1) * to_s
+        g2 = np.full((n_times, n_channels, lags.size), np.nan)
+    for column, (kind, key, index, unit, where) in zip(columns, keys, strict=True):
+        c = channel_keys.index(key)
+        if kind == "BFi":
+            if unit not in _BFI_UNITS and unit:
+                raise InputError(
+                    path,
+                    f"{where}/dataUnit",
+                    f"one of {list(_BFI_UNITS)}",
+                    unit,
+                    suggest(unit, _BFI_UNITS),
+                )
+            flow_unit, scale = _BFI_UNITS[unit or "cm2/s"]
+            units.add(flow_unit)
+            flow[:, c] = column * scale
+            has_flow[c] = True
+        else:
+            if not 1 <= index <= lags.size:
+                raise InputError(
+                    path,
+                    f"{where}/dataTypeIndex",
+                    f"a lag index 1..{lags.size} into correlationTimeDelays",
+                    index,
+                )
+            g2[:, c, index - 1] = column
+    if len(units) > 1:
+        raise InputError(path, "measurementList dataUnit", "one flow unit", sorted(units))
+    flow_unit = units.pop() if units else "cm2/s"
+    if has_flow.any() and not has_flow.all():
+        missing = [ch.name for ch, h in zip(channels, has_flow, strict=True) if not h]
+        raise InputError(
+            path,
+            "measurementList dataType",
+            "a BFi (410) series for every channel with g2 data",
+            f"none for {missing}",
+        )
+    names = [c.name for c in channels]
+    data_path = f"{nirs.name}/data1"
+
+    def where(row: int) -> str:
+        return f"{data_path}/dataTimeSeries, row {row + 1} (time {times[row]:.6g} s)"
+
+    if has_flow.any():
+        check_flow_values(
+            flow,
+            flow_unit,
+            names,
+            path=str(path),
+            where=where,
+            where_column=lambda c: f"channel {names[c]!r}",
+        )
+    stacked = flow if lags is None else np.column_stack([flow, g2.reshape(n_times, -1)])
+    repairs: list[dict] = []
+    new_times, stacked, rows = clean_times(
+        times, stacked, path=str(path), where=where, repairs=repairs
+    )
+    new_times, stacked, rows = regular_grid(
+        new_times, stacked, rows, path=str(path), where=where, repairs=repairs
+    )
+    flow = stacked[:, :n_channels]
+    kept = {}
+    if has_flow.any():
+        flow, kept = fill_missing(
+            new_times, flow, rows, names, path=str(path), where=where, repairs=repairs
+        )
+    g2_out = (
+        None
+        if lags is None
+        else stacked[:, n_channels:].reshape(new_times.size, n_channels, lags.size)
+    )
+    step = float(np.median(np.diff(new_times)))
+    events = read_stims(path, nirs, float(new_times[0]), float(new_times[-1] + step))
+    subject, session = stem_entities(recording_stem(path))
+    if subject is None and meta is not None and "SubjectID" in meta:
+        subject = text(meta["SubjectID"][()]) or None
+    provenance = {"repairs": repairs, "missing_samples": kept, "files": {"snirf": str(path)}}
+    if not has_flow.any():
+        provenance["flow_missing"] = True
+    return Recording(
+        times_s=new_times,
+        flow=flow,
+        channels=channels,
+        flow_unit=flow_unit,
+        events=events,
+        aux=read_aux_groups(path, nirs, to_s),
+        g2=g2_out,
+        lags_s=lags,
+        source=str(path),
+        subject=subject,
+        session=session,
+        provenance=provenance,
+    )
