@@ -1,0 +1,564 @@
+"""Batched fit of BFi (and β) to many g2 curves at once.
+
+All curves of a recording are fitted together by a vectorised Levenberg–Marquardt
+iteration on the parameters (log BFi, β): each iteration builds the 2 × 2 normal
+equations of every still-active curve from the analytic Jacobian, damps them, solves
+them in closed form and accepts or rejects each curve's step on its own.  Curves that
+have converged leave the active set, and the curves are processed in chunks, so the
+memory held is a few (chunk_size, n_lags) arrays whatever the recording length.
+Fitting log BFi keeps BFi positive without bounds.
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass
+
+import numpy as np
+
+from fstats.flow.forward import OBSERVABLES, _geometry, _surface_signal
+from fstats.flow.noise import g2_noise_sd
+from fstats.flow.screening import BLOCKING_REASONS, join_reasons, screen_curves, stack_curves
+
+__all__ = ["BETA_MAX", "WEIGHTINGS", "G2FitResult", "fit_g2", "decay_product_cm2"]
+
+logger = logging.getLogger(__name__)
+
+#: How lags are weighted: equally, or by the expected g2 noise (see :mod:`fstats.flow.noise`).
+#: An explicit array of standard deviations may be passed instead.
+WEIGHTINGS: tuple[str, ...] = ("uniform", "noise-model")
+
+#: Largest β a fit may take (a fully coherent, polarised detection gives 1; ours).
+BETA_MAX: float = 1.5
+_BETA_MIN = 1e-4
+
+_GEOM_KEYS = ("r1", "r2", "z0", "z_image", "k_static_sq", "flow_coef")
+
+
+@dataclass(frozen=True, eq=False)
+class G2FitResult:
+    """Per-curve results of :func:`fit_g2`.
+
+    Parameters
+    ----------
+    bfi_cm2_s : ndarray, shape (n_curves,)
+        Fitted blood-flow index α·Db in cm²/s; NaN for curves not fitted.
+    beta : ndarray, shape (n_curves,)
+        Fitted (or fixed) coherence factor β; NaN for curves not fitted.
+    reduced_chi2 : ndarray, shape (n_curves,)
+        Weighted sum of squared residuals / (lags used - parameters).  With uniform
+        weighting this is the mean squared g2 residual (unitless²).
+    rms_residual : ndarray, shape (n_curves,)
+        Unweighted root-mean-square g2 residual over the lags used.
+    misfit_ratio : ndarray, shape (n_curves,)
+        Σ r² / (½ Σ (Δr)²) of the weighted residuals over consecutive used lags: about
+        1 for a curve fitted down to independent noise, large for a systematic misfit.
+    n_iter : ndarray of int, shape (n_curves,)
+        Levenberg–Marquardt iterations taken.
+    converged : ndarray of bool, shape (n_curves,)
+    n_lags_used : ndarray of int, shape (n_curves,)
+    fitted : ndarray of bool, shape (n_curves,)
+        False where a blocking screening reason stopped the fit.
+    status : ndarray of str (object), shape (n_curves,)
+        ``"ok"`` or the reasons, joined by ``"; "`` (see :mod:`fstats.flow.screening`).
+    count_rate_hz : ndarray, shape (n_curves,), optional
+        Photon count rate per curve in counts/s, where provided.
+    settings : dict
+        The options of the fit, for provenance.
+    """
+
+    bfi_cm2_s: np.ndarray
+    beta: np.ndarray
+    reduced_chi2: np.ndarray
+    rms_residual: np.ndarray
+    misfit_ratio: np.ndarray
+    n_iter: np.ndarray
+    converged: np.ndarray
+    n_lags_used: np.ndarray
+    fitted: np.ndarray
+    status: np.ndarray
+    count_rate_hz: np.ndarray | None
+    settings: dict
+
+    @property
+    def good(self) -> np.ndarray:
+        """Curves fitted with no quality flag, shape (n_curves,)."""
+        return self.fitted & (self.status == "ok")
+
+    def reason_counts(self) -> dict[str, int]:
+        """How many curves carry each reason (a curve may carry several)."""
+        counts: dict[str, int] = {}
+        for text in self.status:
+            if text == "ok":
+                continue
+            for reason in str(text).split("; "):
+                counts[reason] = counts.get(reason, 0) + 1
+        return counts
+
+
+def decay_product_cm2(level: float, geom: dict, observable: str) -> np.ndarray:
+    """The product BFi·τ (cm²) at which g1 falls to ``level``, per curve geometry.
+
+    g1 depends on BFi and τ only through their product, so this one number per
+    geometry turns an observed decay lag into a BFi estimate.  Found by bisection in
+    log space (60 halvings, relative precision ~1e-16 of the bracket 1e-22..1e-2 cm²).
+    """
+    shape = np.broadcast_shapes(*(np.shape(geom[k]) for k in _GEOM_KEYS))
+    geom = {k: np.broadcast_to(geom[k], shape) for k in _GEOM_KEYS}
+    lo = np.full(shape, np.log(1e-22))
+    hi = np.full(shape, np.log(1e-2))
+    k0 = np.sqrt(geom["k_static_sq"])
+    v0, e0 = _surface_signal(k0, geom, observable)
+    for _ in range(60):
+        mid = 0.5 * (lo + hi)
+        k = np.sqrt(geom["k_static_sq"] + geom["flow_coef"] * np.exp(mid))
+        v, e = _surface_signal(k, geom, observable)
+        g1 = np.exp(-(e - e0)) * v / v0
+        above = g1 > level
+        lo = np.where(above, mid, lo)
+        hi = np.where(above, hi, mid)
+    return np.exp(0.5 * (lo + hi))
+
+
+def _g1_squared(u, lags, geom, observable):
+    """g1² and its derivative with respect to log-BFi ``u`` (shape (n, 1)), per lag."""
+    bfi_tau = np.exp(u) * lags
+    k_static_sq, flow_coef = geom["k_static_sq"], geom["flow_coef"]
+    k = np.sqrt(k_static_sq + flow_coef * bfi_tau)
+    k0 = np.sqrt(k_static_sq)
+    r1, r2 = geom["r1"], geom["r2"]
+    tail = np.exp(-k * (r2 - r1))
+    tail0 = np.exp(-k0 * (r2 - r1))
+    if observable == "fluence":
+        value = 1.0 / r1 - tail / r2
+        value0 = 1.0 / r1 - tail0 / r2
+        dlog_dk = -(1.0 - tail) / value
+    else:
+        a1 = geom["z0"] / r1**2
+        a2 = geom["z_image"] * tail / r2**2
+        value = a1 * (k + 1.0 / r1) + a2 * (k + 1.0 / r2)
+        value0 = a1 * (k0 + 1.0 / r1) + geom["z_image"] * tail0 / r2**2 * (k0 + 1.0 / r2)
+        dlog_dk = -k * (a1 * r1 + a2 * r2) / value
+    g1 = np.exp(-(k - k0) * r1) * (value / value0)
+    g1sq = g1 * g1
+    dk_du = flow_coef * bfi_tau / (2.0 * k)
+    return g1sq, 2.0 * g1sq * dlog_dk * dk_du
+
+
+def _evaluate(u, beta_fixed, y, w, lags, geom, observable):
+    """β (profiled or fixed), weighted residual, χ² and the reduced Jacobian column."""
+    with np.errstate(over="ignore", invalid="ignore", under="ignore"):
+        g1sq, dg_du = _g1_squared(u[:, None], lags, geom, observable)
+    jb = w * g1sq
+    free = np.zeros(u.shape[0], dtype=bool)
+    if beta_fixed is None:
+        # β enters linearly: its least-squares value for this u (variable projection),
+        # kept within (0, BETA_MAX]; a clamped β acts as fixed for this step
+        with np.errstate(divide="ignore", invalid="ignore"):
+            beta = np.einsum("ij,ij->i", jb, w * (y - 1.0)) / np.einsum("ij,ij->i", jb, jb)
+        free = (beta > _BETA_MIN) & (beta < BETA_MAX)
+        beta = np.clip(beta, _BETA_MIN, BETA_MAX)
+    else:
+        beta = beta_fixed
+    with np.errstate(invalid="ignore"):
+        resid = w * (y - 1.0) - beta[:, None] * jb
+        chi = np.einsum("ij,ij->i", resid, resid)
+        ju = w * beta[:, None] * dg_du
+    if free.any():
+        # Kaufman's reduced Jacobian: remove the part of d(model)/du along the β column
+        with np.errstate(divide="ignore", invalid="ignore"):
+            proj = np.einsum("ij,ij->i", ju, jb) / np.einsum("ij,ij->i", jb, jb)
+        ju = ju - np.where(free, proj, 0.0)[:, None] * jb
+    return beta, resid, chi, ju
+
+
+def _lm(y, w, lags, geom, observable, u, beta, fit_beta, max_iter, xtol, ftol):
+    """Damped secant-Newton iteration in log-BFi with β profiled out; one chunk of curves.
+
+    The profiled χ²(u) is one-dimensional.  Its exact gradient is -2 Σ J·r (J the
+    reduced Jacobian column; r is orthogonal to the β column at the profiled β).  The
+    curvature starts at the Gauss–Newton value Σ J² and is replaced by the secant of
+    the gradient between the last two points evaluated (accepted or not) once that is
+    positive, which keeps convergence fast on noisy curves where Gauss–Newton alone
+    overshoots.  Steps are damped Levenberg–Marquardt style: a step that raises χ² is
+    rejected and the damping raised.
+
+    Returns u, beta, n_iter, converged and the weighted residuals at the solution.
+    """
+    n = y.shape[0]
+    u = u.copy()
+    beta_fixed = None if fit_beta else beta.copy()
+    lam = np.full(n, 1e-3)
+    n_iter = np.zeros(n, dtype=int)
+    converged = np.zeros(n, dtype=bool)
+    beta, resid, chi, ju = _evaluate(u, beta_fixed, y, w, lags, geom, observable)
+    grad = -np.einsum("ij,ij->i", ju, resid)
+    prev_u = np.full(n, np.nan)
+    prev_grad = np.full(n, np.nan)
+    active = np.ones(n, dtype=bool)
+    for _ in range(max_iter):
+        idx = np.flatnonzero(active)
+        if idx.size == 0:
+            break
+        n_iter[idx] += 1
+        ji = ju[idx]
+        gi = grad[idx]
+        curv = np.einsum("ij,ij->i", ji, ji)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            secant = (gi - prev_grad[idx]) / (u[idx] - prev_u[idx])
+        curv = np.where(np.isfinite(secant) & (secant > 0), secant, curv)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            du = -gi / (curv * (1.0 + lam[idx]))
+        du = np.where(np.isfinite(du), np.clip(du, -3.0, 3.0), 0.0)
+        u_t = u[idx] + du
+        geom_i = {k: v[idx] for k, v in geom.items()}
+        fixed_i = None if beta_fixed is None else beta_fixed[idx]
+        b_t, r_t, chi_t, j_t = _evaluate(u_t, fixed_i, y[idx], w[idx], lags, geom_i, observable)
+        g_t = -np.einsum("ij,ij->i", j_t, r_t)
+        better = chi_t < chi[idx]
+        small = np.abs(du) <= xtol
+        settled = (chi[idx] - chi_t) <= ftol * chi_t
+        # secant pair: the other end is the old point (accepted) or the trial (rejected)
+        prev_u[idx] = np.where(better, u[idx], u_t)
+        prev_grad[idx] = np.where(better, gi, g_t)
+        acc = idx[better]
+        u[acc] = u_t[better]
+        beta[acc] = b_t[better]
+        resid[acc], chi[acc], ju[acc], grad[acc] = (
+            r_t[better],
+            chi_t[better],
+            j_t[better],
+            g_t[better],
+        )
+        lam[idx] = np.where(better, lam[idx] * 0.3, np.maximum(lam[idx] * 4.0, 1e-2))
+        done = small | (better & settled)
+        converged[idx[done]] = True
+        active[idx[done | (lam[idx] > 1e12)]] = False
+    return u, beta, n_iter, converged, resid
+
+
+def _per_curve(value, n_curves, name):
+    arr = np.asarray(value, dtype=float)
+    if arr.ndim == 0:
+        return np.full(n_curves, float(arr))
+    if arr.shape != (n_curves,):
+        raise ValueError(f"{name} must be a scalar or have shape ({n_curves},), got {arr.shape}")
+    return arr
+
+
+def fit_g2(
+    g2,
+    lags_s,
+    *,
+    separation_cm,
+    mua_per_cm=0.1,
+    musp_per_cm=10.0,
+    n: float = 1.4,
+    wavelength_nm: float = 785.0,
+    reff: float | None = None,
+    observable: str = "fluence",
+    beta="fit",
+    fit_range_s: tuple[float, float] | None = None,
+    decay_floor: float | None = None,
+    weighting="uniform",
+    count_rate_hz=None,
+    integration_time_s=None,
+    min_count_rate_hz: float = 2000.0,
+    max_misfit_ratio: float = 4.0,
+    max_reduced_chi2: float | None = None,
+    max_iter: int = 50,
+    xtol: float = 1e-8,
+    ftol: float = 1e-10,
+    chunk_size: int = 8192,
+) -> G2FitResult:
+    """Fit BFi (cm²/s) and β to every g2 curve at once with the semi-infinite model.
+
+    Parameters
+    ----------
+    g2 : ndarray, shape (n_curves, n_lags), or sequence of 1-D arrays
+        Measured intensity autocorrelations; a ragged sequence is allowed (curves of the
+        wrong length are flagged "wrong lag count").
+    lags_s : array_like, shape (n_lags,)
+        Lag times in s, increasing, > 0.
+    separation_cm : float or ndarray, shape (n_curves,)
+        Source-detector separation in cm.
+    mua_per_cm, musp_per_cm : float or ndarray, shape (n_curves,), default=0.1, 10.0
+        Absorption and reduced scattering coefficients in 1/cm (adult-head defaults, see
+        :data:`fstats.flow.forward.ADULT_HEAD_DEFAULTS`).
+    n : float, default=1.4
+        Tissue refractive index.
+    wavelength_nm : float, default=785.0
+        Laser wavelength in nm.
+    reff : float, optional
+        Effective reflection coefficient; default from ``n`` (exact Fresnel integral).
+    observable : {"fluence", "flux"}, default="fluence"
+        Detected quantity of the forward model (see :func:`g1_semi_infinite`).
+    beta : "fit" or float, default="fit"
+        ``"fit"`` fits β per curve; a number fixes β for every curve.
+    fit_range_s : (float, float), optional
+        Only lags with ``lo <= τ <= hi`` (s) take part.
+    decay_floor : float, optional
+        Fit each curve only until (g2 - 1) falls below ``decay_floor`` · β (β from the
+        curve's first lags): the first k lags of the range, with k the number of lags
+        at or above the floor (robust to noise crossing the floor early).
+    weighting : {"uniform", "noise-model"} or ndarray, default="uniform"
+        ``"uniform"``: equal weights.  ``"noise-model"``: 1/σ(τ) from
+        :func:`fstats.flow.noise.g2_noise_sd`, evaluated at the starting values (needs
+        ``count_rate_hz`` and ``integration_time_s``).  An array of σ, shape (n_lags,) or
+        (n_curves, n_lags), is used as given.
+    count_rate_hz : float or ndarray, shape (n_curves,), optional
+        Photon count rate per curve in counts/s: checked (zero blocks the fit, below
+        ``min_count_rate_hz`` marks "low count rate") and used by the noise model.
+    integration_time_s : float or ndarray, shape (n_curves,), optional
+        Averaging time of each curve in s (the reciprocal of the curve rate).
+    min_count_rate_hz : float, default=2000.0
+        Count rate under which a curve is marked "low count rate" (ours).
+    max_misfit_ratio : float, default=4.0
+        Curves whose :attr:`G2FitResult.misfit_ratio` exceeds this are marked "poor fit".
+    max_reduced_chi2 : float, optional
+        Also mark "poor fit" above this reduced χ² (meaningful with a noise model).
+    max_iter : int, default=50
+    xtol : float, default=1e-8
+        Convergence when the log-BFi step (≈ relative BFi step) and the relative β step
+        fall below this.
+    ftol : float, default=1e-10
+        ... or when an accepted step lowers χ² by less than this fraction.
+    chunk_size : int, default=8192
+        Curves fitted together; bounds memory to ~15 arrays of (chunk_size, n_lags).
+
+    Returns
+    -------
+    G2FitResult
+
+    Notes
+    -----
+    Model: g2(τ) = 1 + β g1(τ; BFi)², g1 from :func:`fstats.flow.forward.g1_semi_infinite`.
+    Starting values: β from the mean of g2 - 1 over the first three fitted lags; BFi
+    from the lag at which (g2 - 1)/β falls to 1/e, since g1 depends on BFi·τ only.
+    Iteration: Levenberg–Marquardt with multiplicative damping of the normal-equation
+    diagonal (Marquardt 1963, J SIAM 11:431), per curve.
+    """
+    if observable not in OBSERVABLES:
+        raise ValueError(f"observable must be one of {OBSERVABLES}, got {observable!r}")
+    lags = np.asarray(lags_s, dtype=float)
+    if lags.ndim != 1 or lags.size < 3 or not np.all(np.diff(lags) > 0) or lags[0] <= 0:
+        raise ValueError("lags_s must be an increasing 1-D array of >= 3 positive lags")
+    fit_beta = isinstance(beta, str)
+    if fit_beta and beta != "fit":
+        raise ValueError(f"beta must be 'fit' or a number, got {beta!r}")
+    n_lags = lags.size
+    curves, wrong_length = stack_curves(g2, n_lags)
+    n_curves = curves.shape[0]
+    sigma = None
+    if not isinstance(weighting, str):
+        sigma = np.asarray(weighting, dtype=float)
+        if sigma.shape not in {(n_lags,), (n_curves, n_lags)}:
+            raise ValueError(f"sigma array must have shape ({n_lags},) or ({n_curves}, {n_lags})")
+    elif weighting not in WEIGHTINGS:
+        raise ValueError(f"weighting must be one of {WEIGHTINGS} or an array, got {weighting!r}")
+    elif weighting == "noise-model" and (count_rate_hz is None or integration_time_s is None):
+        raise ValueError("weighting='noise-model' needs count_rate_hz and integration_time_s")
+
+    per_curve = {
+        "separation_cm": _per_curve(separation_cm, n_curves, "separation_cm"),
+        "mua_per_cm": _per_curve(mua_per_cm, n_curves, "mua_per_cm"),
+        "musp_per_cm": _per_curve(musp_per_cm, n_curves, "musp_per_cm"),
+    }
+    rate = None if count_rate_hz is None else _per_curve(count_rate_hz, n_curves, "count_rate_hz")
+    t_int = None
+    if integration_time_s is not None:
+        t_int = _per_curve(integration_time_s, n_curves, "integration_time_s")
+    in_range = np.ones(n_lags, dtype=bool)
+    if fit_range_s is not None:
+        lo, hi = fit_range_s
+        in_range = (lags >= lo) & (lags <= hi)
+        if in_range.sum() < 3:
+            raise ValueError(f"fit_range_s {fit_range_s} keeps fewer than 3 lags")
+
+    out = {
+        "bfi": np.full(n_curves, np.nan),
+        "beta": np.full(n_curves, np.nan),
+        "chi2": np.full(n_curves, np.nan),
+        "rms": np.full(n_curves, np.nan),
+        "misfit": np.full(n_curves, np.nan),
+        "n_iter": np.zeros(n_curves, dtype=int),
+        "converged": np.zeros(n_curves, dtype=bool),
+        "n_used": np.zeros(n_curves, dtype=int),
+    }
+    flags = {reason: np.zeros(n_curves, dtype=bool) for reason in BLOCKING_REASONS}
+    for start in range(0, n_curves, chunk_size):
+        sl = slice(start, min(start + chunk_size, n_curves))
+        chunk_flags = _fit_chunk(
+            curves[sl],
+            wrong_length[sl],
+            lags,
+            in_range,
+            {k: v[sl] for k, v in per_curve.items()},
+            n=n,
+            wavelength_nm=wavelength_nm,
+            reff=reff,
+            observable=observable,
+            beta=beta,
+            fit_beta=fit_beta,
+            decay_floor=decay_floor,
+            sigma=None if sigma is None else (sigma if sigma.ndim == 1 else sigma[sl]),
+            weighting=weighting if sigma is None else "array",
+            rate=None if rate is None else rate[sl],
+            t_int=None if t_int is None else t_int[sl],
+            max_iter=max_iter,
+            xtol=xtol,
+            ftol=ftol,
+            out={k: v[sl] for k, v in out.items()},
+        )
+        for reason, where in chunk_flags.items():
+            flags[reason][sl] = where
+    fitted = ~np.any(np.stack(list(flags.values())), axis=0)
+    quality = {
+        "low count rate": fitted & (rate < min_count_rate_hz)
+        if rate is not None
+        else np.zeros(n_curves, bool),
+        # a residual at rounding level (noise-free input) is never a poor fit
+        "poor fit": fitted & (out["misfit"] > max_misfit_ratio) & (out["rms"] > 1e-9),
+        "not converged": fitted & ~out["converged"],
+    }
+    if max_reduced_chi2 is not None:
+        quality["poor fit"] |= fitted & (out["chi2"] > max_reduced_chi2)
+    status = join_reasons({**flags, **quality}, n_curves)
+    settings = {
+        "model": "semi-infinite correlation diffusion, extrapolated-zero boundary",
+        "observable": observable,
+        "beta": "fit" if fit_beta else float(beta),
+        "fit_range_s": None if fit_range_s is None else [float(v) for v in fit_range_s],
+        "decay_floor": decay_floor,
+        "weighting": weighting if sigma is None else "sigma array",
+        "n": float(n),
+        "wavelength_nm": float(wavelength_nm),
+        "reff": None if reff is None else float(reff),
+        "min_count_rate_hz": float(min_count_rate_hz),
+        "max_misfit_ratio": float(max_misfit_ratio),
+        "max_reduced_chi2": max_reduced_chi2,
+        "xtol": xtol,
+        "ftol": ftol,
+        "max_iter": max_iter,
+    }
+    logger.debug("fitted %d of %d g2 curves", int(fitted.sum()), n_curves)
+    return G2FitResult(
+        bfi_cm2_s=out["bfi"],
+        beta=out["beta"],
+        reduced_chi2=out["chi2"],
+        rms_residual=out["rms"],
+        misfit_ratio=out["misfit"],
+        n_iter=out["n_iter"],
+        converged=out["converged"] & fitted,
+        n_lags_used=out["n_used"],
+        fitted=fitted,
+        status=status,
+        count_rate_hz=rate,
+        settings=settings,
+    )
+
+
+def _fit_chunk(
+    y_all,
+    wrong,
+    lags,
+    in_range,
+    optics,
+    *,
+    n,
+    wavelength_nm,
+    reff,
+    observable,
+    beta,
+    fit_beta,
+    decay_floor,
+    sigma,
+    weighting,
+    rate,
+    t_int,
+    max_iter,
+    xtol,
+    ftol,
+    out,
+):
+    """Screen and fit one chunk of curves, writing into the views in ``out``."""
+    n_chunk, n_lags = y_all.shape
+    base_mask = np.broadcast_to(in_range, y_all.shape)
+    flags = screen_curves(y_all, base_mask, wrong_length=wrong, count_rate_hz=rate)
+    ok = ~np.any(np.stack(list(flags.values())), axis=0)
+    idx = np.flatnonzero(ok)
+    if idx.size == 0:
+        return flags
+    y = y_all[idx]
+    geom = _geometry(
+        optics["separation_cm"][idx],
+        optics["mua_per_cm"][idx],
+        optics["musp_per_cm"][idx],
+        n,
+        wavelength_nm,
+        reff,
+    )
+    geom = {k: np.broadcast_to(geom[k], (idx.size,))[:, None].copy() for k in _GEOM_KEYS}
+
+    # starting values
+    first = np.argmax(in_range)
+    head = slice(first, first + 3)
+    beta0 = np.clip(np.mean(y[:, head] - 1.0, axis=1), 0.01, 1.5)
+    b_start = beta0 if fit_beta else np.full(idx.size, float(beta))
+    ratio = (y - 1.0) / b_start[:, None]
+    mask = np.broadcast_to(in_range, y.shape).copy()
+    if decay_floor is not None:
+        keep = np.sum(mask & (ratio >= decay_floor), axis=1)
+        keep = np.maximum(keep, 5)
+        rank = np.cumsum(mask, axis=1)
+        mask &= rank <= keep[:, None]
+    log_lags = np.log(lags)
+    above = np.sum(mask & (ratio > np.exp(-1.0)), axis=1)  # lags where g1 > e^{-1/2}
+    rank = np.cumsum(mask, axis=1)
+    # lag index of the `above`-th and next fitted lag (robust 1/e crossing)
+    pos_lo = np.argmax(rank >= np.maximum(above, 1)[:, None], axis=1)
+    pos_hi = np.argmax(rank >= np.minimum(above + 1, mask.sum(1))[:, None], axis=1)
+    log_tau_e = 0.5 * (log_lags[pos_lo] + log_lags[pos_hi])
+    log_tau_e = np.where(above >= mask.sum(1), log_lags[pos_hi] + np.log(2.0), log_tau_e)
+    x_half = decay_product_cm2(np.exp(-0.5), {k: v[:, 0] for k, v in geom.items()}, observable)
+    u0 = np.log(x_half) - log_tau_e
+
+    if sigma is not None:
+        s = np.broadcast_to(sigma, (n_chunk, n_lags))[idx]
+        w = np.where(mask, 1.0 / s, 0.0)
+    elif weighting == "noise-model":
+        x_e = decay_product_cm2(np.exp(-1.0), {k: v[:, 0] for k, v in geom.items()}, observable)
+        gamma = np.exp(u0) / x_e  # 1/s: g1 ≈ e^{-Γτ}, Γ = BFi0 / (BFi·τ at g1 = 1/e)
+        s = g2_noise_sd(
+            lags,
+            beta=b_start,
+            decay_rate_hz=gamma,
+            count_rate_hz=rate[idx],
+            integration_time_s=t_int[idx],
+        )
+        w = np.where(mask, 1.0 / s, 0.0)
+    else:
+        w = mask.astype(float)
+    y = np.where(mask, y, 1.0)  # masked lags carry zero weight; keep them finite
+
+    u, b, n_iter, converged, resid = _lm(
+        y, w, lags, geom, observable, u0, b_start, fit_beta, max_iter, xtol, ftol
+    )
+    n_used = mask.sum(axis=1)
+    n_par = 2 if fit_beta else 1
+    chi = np.einsum("ij,ij->i", resid, resid)
+    g1sq, _ = _g1_squared(u[:, None], lags, geom, observable)
+    raw = np.where(mask, y - 1.0 - b[:, None] * g1sq, 0.0)
+    pair = mask[:, 1:] & mask[:, :-1]
+    diff = np.where(pair, np.diff(resid, axis=1), 0.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        misfit = chi / (0.5 * np.einsum("ij,ij->i", diff, diff))
+    out["bfi"][idx] = np.exp(u)
+    out["beta"][idx] = b
+    out["chi2"][idx] = chi / np.maximum(n_used - n_par, 1)
+    out["rms"][idx] = np.sqrt(np.einsum("ij,ij->i", raw, raw) / n_used)
+    out["misfit"][idx] = misfit
+    out["n_iter"][idx] = n_iter
+    out["converged"][idx] = converged
+    out["n_used"][idx] = n_used
+    return flags
