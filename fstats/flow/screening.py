@@ -8,9 +8,8 @@ A bad curve never stops the recording.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
-
 import warnings
+from collections.abc import Sequence
 
 import numpy as np
 
