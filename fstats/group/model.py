@@ -145,6 +145,12 @@ class GroupModel:
     influence: bool = True
 
     def __post_init__(self) -> None:
+        for name in ("terms", "channels", "groups", "pair"):  # YAML lists -> tuples
+            value = getattr(self, name)
+            if value is not None and not isinstance(value, tuple):
+                if isinstance(value, str):
+                    value = (value,)
+                object.__setattr__(self, name, tuple(str(v) for v in value))
         for name, choices in _CHOICES.items():
             value = getattr(self, name)
             if value not in choices:
