@@ -291,7 +291,13 @@ def _from_cohort(
     from fstats.inputs import find_recordings
 
     if not folder.is_dir():
-        raise InputError(study_path, "key 'cohort'", "an existing cohort folder", str(folder))
+        raise InputError(
+            study_path,
+            "key 'cohort'",
+            "an existing cohort folder",
+            str(folder),
+            hint="'fstats simulate' writes a simulated one",
+        )
     entries = find_recordings(folder)
     recordings = [
         StudyRecording(e.participant_id, e.session, e.stem, Path(e.path)) for e in entries
@@ -383,7 +389,7 @@ def load_study(path: str | Path) -> StudySpec:
     if not design.is_file():
         raise InputError(path, "key 'design'", "an existing design file", raw.design)
     group_options = {
-        **raw.group.options,
+        **{k: tuple(v) if isinstance(v, list) else v for k, v in raw.group.options.items()},
         "kind": raw.group.kind,
         "formula": raw.group.formula,
         "weighting": raw.group.weighting,
@@ -409,11 +415,21 @@ def load_study(path: str | Path) -> StudySpec:
     )
 
 
+#: Where a group-model setting lives in the study file.
+_GROUP_KEYS = {
+    "kind": "group.kind",
+    "formula": "group.formula",
+    "weighting": "group.weighting",
+    "correction": "corrections.method",
+    "alpha": "corrections.alpha",
+}
+
+
 def _check_group_options(path: Path, options: dict) -> None:
     """Build the group model once so a bad group section fails before any fitting."""
     try:
         from fstats.group import GroupModel
-    except ImportError:  # group stage not installed yet: checked when the group runs
+    except ImportError:  # group stage not installed: checked when the group level runs
         return
     known = {f.name for f in dataclasses.fields(GroupModel)}
     for name in options:
@@ -427,9 +443,10 @@ def _check_group_options(path: Path, options: dict) -> None:
             )
     try:
         GroupModel(**options)
+    except InputError as exc:
+        key = _GROUP_KEYS.get(exc.where, f"group.options.{exc.where}")
+        raise InputError(path, f"key {key!r}", exc.expected, exc.found, hint=exc.hint) from None
     except (TypeError, ValueError) as exc:
-        if isinstance(exc, InputError):
-            raise
         raise InputError(
             path, "key 'group'", "a valid group model", options, hint=str(exc)
         ) from exc

@@ -122,3 +122,23 @@ def test_recording_stem():
     """Source: CONTRACTS.md section 1 - the stem is the name before _flow.tsv/.csv/_dcs.snirf."""
     assert recording_stem("a/sub-01_task-cue_run-2_flow.csv") == "sub-01_task-cue_run-2"
     assert recording_stem("sub-01_task-cue_dcs.snirf") == "sub-01_task-cue"
+
+
+def test_group_model_errors_point_at_the_study_key(tmp_path):
+    """Source: common practice - a group setting the group stage rejects names its study key."""
+    _tree(tmp_path)
+    with pytest.raises(InputError, match=r"key 'group.weighting'.*did you mean 'reml'"):
+        load_study(_study(tmp_path, VALID.replace("weighting: unweighted", "weighting: rmel")))
+    with pytest.raises(InputError, match=r"key 'corrections.method'"):
+        load_study(_study(tmp_path, VALID.replace("method: holm", "method: sidak")))
+    with pytest.raises(InputError, match=r"key 'group.options.grups'.*did you mean 'groups'"):
+        load_study(
+            _study(
+                tmp_path,
+                VALID.replace("weighting: unweighted", "grups: [a, b]")
+                .replace("{kind: two-sample, ", "{kind: two-sample, options: {")
+                .replace("[a, b]}", "[a, b]}}"),
+            )
+        )
+    text = VALID.replace("weighting: unweighted}", "options: {groups: [younger, older]}}")
+    assert load_study(_study(tmp_path, text)).group_options["groups"] == ("younger", "older")
