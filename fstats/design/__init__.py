@@ -1,5 +1,36 @@
 """Design: response functions, block/event and nuisance regressors, design matrices."""
 
+from fstats.design.build import build_design
+from fstats.design.cardiac import Heartbeats, cardiac_phase, detect_heartbeats, retroicor_terms
+from fstats.design.diagnostics import DesignImage, collinearity_report, design_image, design_table
+from fstats.design.drift import dct_drift, polynomial_drift
+from fstats.design.loader import load_design, parse_design
 from fstats.design.matrix import REGRESSOR_KINDS, Contrast, DesignMatrix
+from fstats.design.response import canonical_hrf, gamma_variate, glover_hrf, response_kernel
+from fstats.design.spec import DesignSpec
+from fstats.design.timing import design_events
 
-__all__ = ["REGRESSOR_KINDS", "Contrast", "DesignMatrix"]
+__all__ = [
+    "REGRESSOR_KINDS",
+    "Contrast",
+    "DesignMatrix",
+    "DesignSpec",
+    "load_design",
+    "parse_design",
+    "build_design",
+    "design_events",
+    "glover_hrf",
+    "canonical_hrf",
+    "gamma_variate",
+    "response_kernel",
+    "dct_drift",
+    "polynomial_drift",
+    "detect_heartbeats",
+    "cardiac_phase",
+    "retroicor_terms",
+    "Heartbeats",
+    "collinearity_report",
+    "design_table",
+    "design_image",
+    "DesignImage",
+]
