@@ -16,11 +16,11 @@ import numpy as np
 import pandas as pd
 
 from fstats.report import _access
+from fstats.report.courses import response_curves
 from fstats.report.figures_model import acf_figure, design_figure, fitted_figure, responses_figure
 from fstats.report.figures_quality import flow_traces_figure, spectra_figure, weights_figure
 from fstats.report.plotdata import (
     autocorrelation,
-    epoch_average,
     flow_spectrum,
     low_weight_segments,
     spectral_peak_hz,
@@ -186,36 +186,6 @@ def _residual_checks(fits: dict, sfreq_hz: float) -> tuple[dict, dict, dict]:
         else {"header": [], "rows": []}
     )
     return table, before, after
-
-
-def _response_curves(fit, recording, is_short: dict) -> tuple[list[dict], str]:
-    curves = _access.block_average_curves(_access.field_of(fit, "block_averages"))
-    if curves:
-        note = "Block averages from the fit, with their confidence bands."
-    else:
-        note = (
-            "Epoch averages of the measured flow (percent change from the 5 s before each "
-            "onset), with 95 % t-based bands across epochs; the fit supplied no block averages."
-        )
-        events = recording.events
-        if events is not None:
-            for condition in events.condition_names:
-                sel = events.select(condition)
-                window = (-5.0, float(np.max(sel.durations_s)) + 20.0)
-                for name in recording.channel_names:
-                    avg = epoch_average(
-                        recording.times_s,
-                        recording.channel_flow(name),
-                        sel.onsets_s,
-                        window_s=window,
-                    )
-                    if avg["n_epochs"]:
-                        curves.append(
-                            {"condition": condition, "channel": name, "method": "epoch", **avg}
-                        )
-    for curve in curves:
-        curve["is_short"] = bool(is_short.get(curve["channel"], False))
-    return curves, note
 
 
 def subject_report(
@@ -461,7 +431,7 @@ def _subject_context(recording, design, fit, store: FigureStore, max_points: int
         )
 
     # --- responses ------------------------------------------------------------
-    curves, responses_note = _response_curves(fit, recording, is_short)
+    curves, responses_note = response_curves(fit, recording)
     durations = (
         {c: float(np.median(events.select(c).durations_s)) for c in events.condition_names}
         if events
