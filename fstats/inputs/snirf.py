@@ -146,7 +146,15 @@ def read_snirf(
     except OSError:
         raise InputError(path, "file", "an HDF5 (SNIRF) file", "unreadable or not HDF5") from None
     with handle:
-        return _read(path, handle, short_threshold_cm)
+        try:
+            return _read(path, handle, short_threshold_cm)
+        except InputError:
+            raise
+        except (KeyError, OSError, ValueError, TypeError) as exc:  # malformed HDF5 content
+            logger.debug("reading %s failed", path, exc_info=True)
+            raise InputError(
+                path, "file", "a readable SNIRF file", f"{type(exc).__name__}: {exc}"
+            ) from None
 
 
 def _read(path: Path, handle: h5py.File, short_threshold_cm: float) -> Recording:
@@ -167,7 +175,12 @@ def _read(path: Path, handle: h5py.File, short_threshold_cm: float) -> Recording
     if "probe" not in nirs:
         raise InputError(path, f"{nirs.name}/probe", "a probe group", "missing")
     probe = nirs["probe"]
-    times, columns, keys = None, [], []  # keys: (kind, channel key, lag index, unit, where)
+    times, columns, keys, ignored = (
+        None,
+        [],
+        [],
+        [],
+    )  # keys: (kind, channel key, lag index, unit, where)
     for block in blocks:
         data = nirs[block]
         series = np.asarray(
@@ -202,7 +215,7 @@ def _read(path: Path, handle: h5py.File, short_threshold_cm: float) -> Recording
             entry = data[name]
             data_type = integer(path, entry, "dataType")
             if data_type not in DCS_DATA_TYPES:
-                logger.info("%s: ignoring %s (dataType %d)", path, entry.name, data_type)
+                ignored.append(data_type)
                 continue
             key = tuple(
                 integer(path, entry, f) if f in entry else 1
@@ -213,13 +226,7 @@ def _read(path: Path, handle: h5py.File, short_threshold_cm: float) -> Recording
             columns.append(series[:, column])
             keys.append((DCS_DATA_TYPES[data_type], key, index, unit, entry.name))
     if not keys:
-        found = sorted(
-            {
-                integer(path, nirs[b][m], "dataType")
-                for b in blocks
-                for m in numbered(nirs[b], "measurementList")
-            }
-        )
+        found = sorted(set(ignored))
         names = [_OTHER_TYPES.get(t, str(t)) for t in found]
         raise InputError(
             path,
@@ -227,6 +234,13 @@ def _read(path: Path, handle: h5py.File, short_threshold_cm: float) -> Recording
             "DCS measurements (dataType 401 g2 or 410 BFi)",
             found,
             hint=f"this file holds {', '.join(names) or 'no'} data",
+        )
+    if ignored:
+        logger.info(
+            "%s: ignoring %d non-DCS measurement(s) of dataType %s",
+            path,
+            len(ignored),
+            sorted(set(ignored)),
         )
     return _assemble(path, nirs, probe, meta, times, columns, keys, to_cm, to_s, short_threshold_cm)
 
