@@ -188,6 +188,7 @@ def run_subject_task(
         "reports": bool(task.reports and "report" in outcome.files),
         "inputs": dict(task.inputs),
         "seconds": round(seconds, 3),
+        "stage_seconds": dict(outcome.stage_seconds),
         "finished": datetime.now(UTC).isoformat(timespec="seconds"),
         "warnings": [m[2] for m in messages if m[0] >= logging.WARNING],
     }

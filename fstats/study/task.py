@@ -11,8 +11,11 @@ marker.
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import logging
+import time
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -113,6 +116,9 @@ class SubjectOutcome:
     messages : tuple of (int, str, str)
         Log records and warnings the task emitted: (level, logger name, message),
         replayed by the main process.
+    stage_seconds : dict of str to float
+        Wall time of each step in seconds (``read``, ``flow``, ``design``, ``fit``,
+        ``write``, ``report``), for finding the slow stage.
     """
 
     participant_id: str
@@ -123,6 +129,7 @@ class SubjectOutcome:
     files: dict = field(default_factory=dict)
     seconds: float = 0.0
     messages: tuple = ()
+    stage_seconds: dict = field(default_factory=dict)
 
     @property
     def ok(self) -> bool:
@@ -188,31 +195,41 @@ def analyse_subject(task: SubjectTask) -> SubjectOutcome:
     from fstats.inputs import read_recording
 
     work_dir = Path(task.work_dir)
+    clock = _StageClock()
     read_options = {}
     if task.short_threshold_cm is not None:
         read_options["short_threshold_cm"] = task.short_threshold_cm
-    recording = read_recording(task.recording_path, **read_options)
-    if recording.subject is None:
-        recording = dataclasses.replace(recording, subject=task.participant_id)
-    recording = _with_channel_roles(recording, task)
+    with clock("read"):
+        recording = read_recording(task.recording_path, **read_options)
+        if recording.subject is None:
+            recording = dataclasses.replace(recording, subject=task.participant_id)
+        recording = _with_channel_roles(recording, task)
     if _needs_flow_from_g2(recording):
         from fstats.flow import flow_from_g2
 
         logger.info("%s: deriving flow from g2 curves", task.stem)
-        recording = flow_from_g2(recording)
-    spec = load_design(task.design_path)
-    design = build_design(spec, recording)
-    glm = _subject_glm(SubjectGLM, dict(getattr(spec, "fit_options", {}) or {}), task)
-    fit = glm.fit(recording, design, channels=task.long_channels)
+        with clock("flow"):
+            recording = flow_from_g2(recording)
+    with clock("design"):
+        spec = load_design(task.design_path)
+        design = build_design(spec, recording)
+    design_options = dict(getattr(spec, "fit_options", {}) or {})
+    with clock("fit"):
+        glm = _subject_glm(SubjectGLM, design_options, task)
+        fit = glm.fit(recording, design, channels=task.long_channels)
     provenance = dict(task.provenance)
     provenance["inputs"] = dict(task.inputs)
-    provenance["options"] = {**dict(getattr(spec, "fit_options", {}) or {}), **task.fit_options}
-    tsv_path, json_path = write_subject_results(fit, work_dir, task.stem, provenance=provenance)
+    provenance["options"] = {**design_options, **task.fit_options}
+    with clock("write"):
+        tsv_path, json_path = write_subject_results(fit, work_dir, task.stem, provenance=provenance)
     files = {"results": Path(tsv_path).name, "sidecar": Path(json_path).name}
     if task.reports:
         from fstats.report import subject_report
 
-        page = subject_report(recording, design, fit, work_dir / REPORT_NAME, provenance=provenance)
+        with clock("report"):
+            page = subject_report(
+                recording, design, fit, work_dir / REPORT_NAME, provenance=provenance
+            )
         files["report"] = Path(page).relative_to(work_dir).as_posix()
     return SubjectOutcome(
         participant_id=task.participant_id,
@@ -220,7 +237,24 @@ def analyse_subject(task: SubjectTask) -> SubjectOutcome:
         stem=task.stem,
         status="computed",
         files=files,
+        stage_seconds=clock.seconds,
     )
+
+
+class _StageClock:
+    """Times named steps: ``with clock("fit"): ...`` adds to ``clock.seconds["fit"]``."""
+
+    def __init__(self) -> None:
+        self.seconds: dict[str, float] = {}
+
+    @contextlib.contextmanager
+    def __call__(self, name: str) -> Iterator[None]:
+        started = time.perf_counter()
+        try:
+            yield
+        finally:
+            elapsed = time.perf_counter() - started
+            self.seconds[name] = round(self.seconds.get(name, 0.0) + elapsed, 4)
 
 
 def _subject_glm(glm_class: type, design_options: dict, task: SubjectTask):
