@@ -6,7 +6,7 @@ import logging
 import time
 import traceback
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
 
@@ -43,6 +43,9 @@ class StudyOutcome:
         The cohort HTML page, when written.
     seconds : float
         Wall time of the run in seconds.
+    timings : dict of str to float
+        Seconds spent on the cohort level: ``group`` (pooling and model) and
+        ``cohort_page``.
     """
 
     study: StudySpec
@@ -51,6 +54,7 @@ class StudyOutcome:
     group_error: str = ""
     cohort_page: Path | None = None
     seconds: float = 0.0
+    timings: dict = field(default_factory=dict)
 
     @property
     def failures(self) -> list[dict]:
@@ -125,6 +129,8 @@ def finish_study(
     group_error = ""
     group_result = None
     participants = None
+    timings = {}
+    clock = time.perf_counter()
     _notify(progress, "group", 0, 1, "group model")
     tables = _subject_tables(spec, subjects)
     if not tables:
@@ -142,19 +148,22 @@ def finish_study(
                 for p in write_group_results(group_result, output / "group", provenance=provenance)
             )
             logger.info("group level: %s", ", ".join(p.name for p in group_files))
-        except InputError:
-            raise
+        except InputError as exc:  # e.g. a group left without subjects by failures
+            group_error = one_line_error(exc)
+            logger.error("group level failed: %s", group_error)
         except Exception as exc:  # the group stage failed; subject results stay valid
             group_error = one_line_error(exc)
             write_text_atomic(output / "group-error.log", _format_exception(exc))
             logger.error("group level failed: %s (traceback in group-error.log)", group_error)
-            group_result = None
+    timings["group"] = round(time.perf_counter() - clock, 3)
     _notify(progress, "group", 1, 1, "group model")
 
     cohort_page = None
     if reports and group_result is not None:
+        clock = time.perf_counter()
         _notify(progress, "cohort report", 0, 1, "cohort page")
         cohort_page = _cohort_page(spec, subjects, group_result, participants, provenance)
+        timings["cohort_page"] = round(time.perf_counter() - clock, 3)
         _notify(progress, "cohort report", 1, 1, "cohort page")
     outcome = StudyOutcome(
         study=spec,
@@ -163,6 +172,7 @@ def finish_study(
         group_error=group_error,
         cohort_page=cohort_page,
         seconds=time.perf_counter() - started,
+        timings=timings,
     )
     _write_run_record(outcome)
     return outcome
@@ -187,6 +197,8 @@ def _cohort_page(spec, subjects, group_result, participants, provenance) -> Path
                 failures=failures,
                 participants=participants,
                 provenance=provenance,
+                group_time_courses=_group_time_courses(spec, subjects, participants),
+                title=spec.title,
             )
         )
     except InputError:
@@ -194,6 +206,27 @@ def _cohort_page(spec, subjects, group_result, participants, provenance) -> Path
     except Exception as exc:  # a report problem must not lose the statistics
         logger.error("cohort page failed: %s", one_line_error(exc))
         write_text_atomic(spec.output_dir / "report-error.log", _format_exception(exc))
+        return None
+
+
+def _group_time_courses(spec, subjects, participants) -> pd.DataFrame | None:
+    """Group-average response time courses from the subjects' stored course tables."""
+    from fstats.report import average_time_courses
+
+    tables = []
+    for s in subjects:
+        if s.ok and "courses" in s.files:
+            path = spec.output_dir / "subjects" / s.stem / s.files["courses"]
+            tables.append(pd.read_csv(path, sep="\t", na_values=["n/a"], keep_default_na=False))
+    if not tables:
+        return None
+    group_column = spec.group_options.get("group_column", "group")
+    try:
+        return average_time_courses(
+            pd.concat(tables, ignore_index=True), participants, group_column=group_column
+        )
+    except Exception as exc:  # the page is still useful without the group time courses
+        logger.warning("group time courses left out of the cohort page: %s", one_line_error(exc))
         return None
 
 
@@ -245,5 +278,6 @@ def _write_run_record(outcome: StudyOutcome) -> None:
             "error": outcome.group_error,
         },
         "cohort_page": outcome.cohort_page.name if outcome.cohort_page else None,
+        "timings": dict(outcome.timings),
     }
     write_json_atomic(spec.output_dir / "study.json", record)

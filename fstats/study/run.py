@@ -219,8 +219,9 @@ def run_study(
     Raises
     ------
     InputError
-        For a bad study file, or a group model the group stage rejects (subject
-        results are kept; fix the study file and run ``regroup``).
+        For a bad study file (checked before any subject runs).  A group level that
+        fails is recorded in ``StudyOutcome.group_error``; subject results are kept
+        and ``regroup`` reruns it.
     """
     started = time.perf_counter()
     spec = load_study(study_path)

@@ -23,6 +23,7 @@ import numpy as np
 
 from fstats.errors import InputError, suggest
 from fstats.inputs.recording import Recording
+from fstats.study.ledger import write_text_atomic
 
 __all__ = ["SubjectTask", "SubjectOutcome", "OUTCOME_STATES", "analyse_subject"]
 
@@ -231,6 +232,7 @@ def analyse_subject(task: SubjectTask) -> SubjectOutcome:
                 recording, design, fit, work_dir / REPORT_NAME, provenance=provenance
             )
         files["report"] = Path(page).relative_to(work_dir).as_posix()
+        files["courses"] = _write_time_courses(fit, recording, task, work_dir)
     return SubjectOutcome(
         participant_id=task.participant_id,
         session=task.session,
@@ -239,6 +241,16 @@ def analyse_subject(task: SubjectTask) -> SubjectOutcome:
         files=files,
         stage_seconds=clock.seconds,
     )
+
+
+def _write_time_courses(fit, recording: Recording, task: SubjectTask, work_dir: Path) -> str:
+    """Write the subject's response time courses (for the cohort page's group averages)."""
+    from fstats.report import subject_time_courses
+
+    courses = subject_time_courses(fit, recording, participant_id=task.participant_id)
+    name = f"{task.stem}_courses.tsv"
+    write_text_atomic(work_dir / name, courses.to_csv(sep="\t", index=False, na_rep="n/a"))
+    return name
 
 
 class _StageClock:
