@@ -80,8 +80,8 @@ def _setup_logging(verbose: bool, quiet: bool) -> None:
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the process exit code.
 
-    Exit codes: 0 success, 1 the analysis ran but some subjects failed, 2 bad
-    input or usage, 130 interrupted.
+    Exit codes: 0 success, 1 the analysis ran but some subjects failed (or an
+    internal error), 2 bad input or usage, 130 interrupted.
     """
     parser = build_parser()
     args = parser.parse_args(argv)
@@ -97,6 +97,15 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print(f"fstats {args.command}: interrupted", file=sys.stderr)
         return 130
+    except Exception as exc:  # a bug, not bad input: one line, traceback only with --verbose
+        if args.verbose:
+            raise
+        print(
+            f"fstats {args.command}: internal error: {type(exc).__name__}: {exc} "
+            "(rerun with --verbose for the traceback, and please report it)",
+            file=sys.stderr,
+        )
+        return 1
 
 
 if __name__ == "__main__":  # pragma: no cover
