@@ -162,6 +162,8 @@ def _needs_flow_from_g2(recording: Recording) -> bool:
     """True when the recording holds g2 curves but no usable flow."""
     if recording.g2 is None:
         return False
+    if recording.provenance.get("flow_missing"):  # set by the SNIRF reader
+        return True
     flow = np.asarray(recording.flow)
     return flow.size == 0 or bool(np.all(np.isnan(flow)))
 
