@@ -20,6 +20,10 @@ __all__ = ["WEIGHTINGS", "summary_test", "leave_one_out"]
 #: Subject weighting of the summary-statistics models.
 WEIGHTINGS: tuple[str, ...] = ("unweighted", "dersimonian-laird", "reml")
 
+_NO_EFFECT = dict.fromkeys(
+    ("cohens_d", "hedges_g", "hedges_g_ci_low", "hedges_g_ci_high"), math.nan
+)
+
 
 def summary_test(
     values: np.ndarray,
@@ -30,6 +34,7 @@ def summary_test(
     equal_variance: bool = False,
     knapp_hartung: bool = True,
     alpha: float = 0.05,
+    effect_sizes: bool = True,
 ) -> dict:
     """Group test on subject estimates.
 
@@ -54,6 +59,8 @@ def summary_test(
     knapp_hartung : bool, default=True
         Weighted models: Knapp–Hartung covariance and t reference (else normal).
     alpha : float, default=0.05
+    effect_sizes : bool, default=True
+        Add Cohen's d and Hedges' g with its interval (NaN when False).
 
     Returns
     -------
@@ -66,7 +73,7 @@ def summary_test(
     s = np.asarray(ses, dtype=float)
     out: dict = {"tau2": math.nan, "i2": math.nan}
     if in_first is None:
-        effects = one_sample_effect(y, alpha=alpha)
+        effects = one_sample_effect(y, alpha=alpha) if effect_sizes else _NO_EFFECT
         if weighting == "unweighted":
             out.update(one_sample_t(y, alpha=alpha))
             weights = np.full(y.size, 1.0 / y.size)
@@ -78,7 +85,7 @@ def summary_test(
             weights = fit.weights / fit.weights.sum()
     else:
         a = np.asarray(in_first, dtype=bool)
-        effects = two_sample_effect(y[a], y[~a], alpha=alpha)
+        effects = two_sample_effect(y[a], y[~a], alpha=alpha) if effect_sizes else _NO_EFFECT
         weights = np.where(a, 1.0 / max(a.sum(), 1), 1.0 / max((~a).sum(), 1))
         if weighting == "unweighted":
             out.update(two_sample_t(y[a], y[~a], equal_variance=equal_variance, alpha=alpha))
@@ -100,7 +107,7 @@ def summary_test(
                 w = 1.0 / (s[mask] ** 2 + tau2)
                 weights[mask] = w / w.sum()
     out["stat_kind"] = "t" if np.isfinite(out["df"]) else "z"
-    out.update(effects)
+    out.update(effects if effect_sizes else dict.fromkeys(effects, math.nan))
     out["weights"] = weights
     return out
 
@@ -175,7 +182,7 @@ def leave_one_out(
     y = np.asarray(values, dtype=float)
     s = np.asarray(ses, dtype=float)
     n = y.size
-    full = summary_test(y, s, in_first, alpha=alpha, **options)
+    full = summary_test(y, s, in_first, alpha=alpha, effect_sizes=False, **options)
     est = np.full(n, np.nan)
     p = np.full(n, np.nan)
     dfbetas = np.full(n, np.nan)
@@ -187,7 +194,7 @@ def leave_one_out(
         ):
             continue
         try:
-            res = summary_test(y[keep], s[keep], sub, alpha=alpha, **options)
+            res = summary_test(y[keep], s[keep], sub, alpha=alpha, effect_sizes=False, **options)
         except (ValueError, np.linalg.LinAlgError):
             continue
         est[i], p[i] = res["estimate"], res["p"]

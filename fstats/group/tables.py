@@ -247,19 +247,24 @@ def average_runs(rows: pd.DataFrame, *, weighted: bool) -> pd.DataFrame:
         Columns ``subject, channel, term, value, value_se, n_runs``.
     """
 
-    def combine(group: pd.DataFrame) -> pd.Series:
-        y = group["value"].to_numpy()
-        s = group["value_se"].to_numpy()
-        if weighted:
-            w = 1.0 / s**2
-            value, se = float(np.sum(w * y) / np.sum(w)), float(1.0 / np.sqrt(np.sum(w)))
-        else:
-            value, se = float(np.mean(y)), float(np.sqrt(np.sum(s**2)) / y.size)
-        return pd.Series({"value": value, "value_se": se, "n_runs": int(y.size)})
-
     keys = ["subject", "channel", "term"]
     if rows.empty:
         return pd.DataFrame(columns=keys + ["value", "value_se", "n_runs"])
-    out = rows.groupby(keys, sort=False)[["value", "value_se"]].apply(combine).reset_index()
-    out["n_runs"] = out["n_runs"].astype(int)
+    y = rows["value"].to_numpy(float)
+    s2 = rows["value_se"].to_numpy(float) ** 2
+    parts = {"y": y, "s2": s2, "one": np.ones(y.size)}
+    if weighted:
+        parts.update(w=1.0 / s2, wy=y / s2)
+    frame = pd.DataFrame(parts, index=rows.index)
+    frame[keys] = rows[keys]
+    sums = frame.groupby(keys, sort=False).sum().reset_index()
+    n = sums["one"].to_numpy()
+    if weighted:
+        value = sums["wy"].to_numpy() / sums["w"].to_numpy()
+        se = 1.0 / np.sqrt(sums["w"].to_numpy())
+    else:
+        value = sums["y"].to_numpy() / n
+        se = np.sqrt(sums["s2"].to_numpy()) / n
+    out = sums[keys].copy()
+    out["value"], out["value_se"], out["n_runs"] = value, se, n.astype(int)
     return out

@@ -88,3 +88,9 @@ def make_cohort(
 @pytest.fixture
 def cohort():
     return make_cohort(np.random.default_rng(7))
+
+
+@pytest.fixture
+def cohort_factory():
+    """The cohort builder itself, for tests that need other sizes or several runs."""
+    return make_cohort

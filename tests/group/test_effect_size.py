@@ -45,12 +45,13 @@ def test_effect_size_definitions():
 
 def test_interval_coverage_by_simulation():
     """Source: common practice - a 95 % interval for delta covers the true value in about
-    95 % of simulated samples (400 samples of n=10, delta=0.8; band 0.92-0.98)."""
+    95 % of simulated samples (250 samples of n=10, delta=0.8; band 0.91-0.99, about
+    3 binomial sd)."""
     rng = np.random.default_rng(12)
     delta, n, hits = 0.8, 10, 0
-    for _ in range(400):
+    for _ in range(250):
         x = rng.normal(delta, 1.0, size=n)
         res = one_sample_effect(x)
         j = hedges_correction(n - 1)
         hits += res["hedges_g_ci_low"] / j <= delta <= res["hedges_g_ci_high"] / j
-    assert 0.92 <= hits / 400 <= 0.98
+    assert 0.91 <= hits / 250 <= 0.99
