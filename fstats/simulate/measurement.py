@@ -232,5 +232,6 @@ def accelerometer(
         if event["kind"] == "step":
             tilt = rng.uniform(-0.1, 0.1, 3)
             gravity += np.outer(np.clip(since / event["duration_s"], 0.0, 1.0), tilt)
+    gravity /= np.linalg.norm(gravity, axis=1, keepdims=True)  # a tilt keeps |g| = 1
     values = gravity + envelope * shake + noise_g * rng.standard_normal((n, 3))
     return {f"accel_{axis}": values[:, i] for i, axis in enumerate("xyz")}

@@ -199,7 +199,8 @@ def respiration(
     """
     n = times_s.size
     sfreq = 1.0 / (times_s[1] - times_s[0])
-    wander = power_law_noise(n, sfreq, 2.0, rng, min_hz=0.003, max_hz=0.03)
+    # breath-to-breath changes over tens of seconds; the mean over minutes stays near rate_hz
+    wander = power_law_noise(n, sfreq, 1.0, rng, min_hz=0.02, max_hz=0.1)
     rate = rate_hz * np.clip(1.0 + rate_cv * wander, 0.5, 1.5)
     phase = rng.uniform(0, 2 * np.pi) + 2.0 * np.pi * np.cumsum(rate) / sfreq
     depth = np.clip(

@@ -312,7 +312,8 @@ def simulate_recording(
             fs,
             rng,
             n_lags=s.n_lags,
-            lag_range_s=s.lag_range_s,
+            first_lag_s=s.first_lag_s,
+            lags_per_level=s.lags_per_level,
             mua_per_cm=s.mua_per_cm,
             musp_per_cm=s.musp_per_cm,
         )
@@ -370,7 +371,8 @@ def simulate_recording(
         if in_beats.size > 1
         else heart_rate,
         "heart_rate_set_bpm": heart_rate,
-        "resp_rate_hz": resp_rate,
+        "resp_rate_hz": float((resp_phase[-1] - resp_phase[pad]) / (2 * np.pi * (times[-1]))),
+        "resp_rate_set_hz": resp_rate,
         "mayer_hz": mayer_hz,
         "brain_fraction_long": w_subject,
         "brain_fraction": {name: float(w) for name, w in zip(_LONG, w_long, strict=True)},

@@ -54,7 +54,6 @@ _RANGE_FIELDS: tuple[str, ...] = (
     "systemic_lag_range_s",
     "count_rate_short_kcps",
     "count_rate_long_kcps",
-    "lag_range_s",
     "beta_range",
 )
 
@@ -165,7 +164,11 @@ class SimulationSettings:
     with_g2 : bool, default=False
         Also simulate raw g2 curves (memory: n_times × 3 × n_lags floats).
     n_lags : int, default=100
-    lag_range_s : (float, float), default=(1e-7, 1e-2)
+    first_lag_s : float, default=1e-7
+        First correlator lag (and first-level bin width), s.
+    lags_per_level : int, default=7
+        Multi-tau layout: lags per level, bin width doubling per level (100 lags from
+        0.1 µs reach ~10 ms).
     beta_range : (float, float), default=(0.45, 0.52)
         Range of the coherence factor β per channel.
     mua_per_cm, musp_per_cm : float, default=0.1, 10.0
@@ -219,7 +222,8 @@ class SimulationSettings:
     with_aux: bool = True
     with_g2: bool = False
     n_lags: int = 100
-    lag_range_s: tuple[float, float] = (1e-7, 1e-2)
+    first_lag_s: float = 1e-7
+    lags_per_level: int = 7
     beta_range: tuple[float, float] = (0.45, 0.52)
     mua_per_cm: float = 0.1
     musp_per_cm: float = 10.0
@@ -233,7 +237,14 @@ class SimulationSettings:
                 self.design,
                 hint=suggest(self.design, DESIGN_KINDS),
             )
-        positive = ("duration_s", "sfreq_hz", "subtract_s", "cue_duration_s", "response_peak_s")
+        positive = (
+            "duration_s",
+            "sfreq_hz",
+            "subtract_s",
+            "cue_duration_s",
+            "response_peak_s",
+            "first_lag_s",
+        )
         for name in positive:
             value = getattr(self, name)
             if not (math.isfinite(value) and value > 0):
@@ -287,7 +298,7 @@ class SimulationSettings:
                 "a rate of at least 6 Hz (cardiac harmonics up to 3 Hz)",
                 self.sfreq_hz,
             )
-        if self.max_motion_events < 0 or self.n_lags < 2:
+        if self.max_motion_events < 0 or self.n_lags < 2 or self.lags_per_level < 1:
             raise InputError(
                 "SimulationSettings",
                 "field 'max_motion_events' or 'n_lags'",

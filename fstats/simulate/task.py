@@ -206,4 +206,6 @@ def evoked_response(
         drive[start:stop] += gain * timing.amplitudes[i]
     if not drive.any():
         return drive
-    return signal.fftconvolve(drive, kernel * dt)[: times_s.size]
+    response = signal.fftconvolve(drive, kernel * dt)[: times_s.size]
+    response[: np.argmax(drive != 0)] = 0.0  # exact causality (FFT round-off before onset)
+    return response
