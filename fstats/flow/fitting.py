@@ -264,6 +264,7 @@ def fit_g2(
     count_rate_hz=None,
     integration_time_s=None,
     min_count_rate_hz: float = 2000.0,
+    min_beta: float = 0.02,
     max_misfit_ratio: float = 4.0,
     max_reduced_chi2: float | None = None,
     max_iter: int = 50,
@@ -313,6 +314,8 @@ def fit_g2(
         Averaging time of each curve in s (the reciprocal of the curve rate).
     min_count_rate_hz : float, default=2000.0
         Count rate under which a curve is marked "low count rate" (ours).
+    min_beta : float, default=0.02
+        Fitted β at or below this (or at :data:`BETA_MAX`) marks "beta out of range".
     max_misfit_ratio : float, default=4.0
         Curves whose :attr:`G2FitResult.misfit_ratio` exceeds this are marked "poor fit".
     max_reduced_chi2 : float, optional
@@ -419,6 +422,7 @@ def fit_g2(
         else np.zeros(n_curves, bool),
         # a residual at rounding level (noise-free input) is never a poor fit
         "poor fit": fitted & (out["misfit"] > max_misfit_ratio) & (out["rms"] > 1e-9),
+        "beta out of range": fitted & ~((out["beta"] > min_beta) & (out["beta"] < BETA_MAX)),
         "not converged": fitted & ~out["converged"],
     }
     if max_reduced_chi2 is not None:
@@ -435,6 +439,7 @@ def fit_g2(
         "wavelength_nm": float(wavelength_nm),
         "reff": None if reff is None else float(reff),
         "min_count_rate_hz": float(min_count_rate_hz),
+        "min_beta": float(min_beta),
         "max_misfit_ratio": float(max_misfit_ratio),
         "max_reduced_chi2": max_reduced_chi2,
         "xtol": xtol,

@@ -41,7 +41,7 @@ def flow_from_g2(
     beta="fit",
     fit_range_s: tuple[float, float] | None = None,
     decay_floor: float | None = None,
-    weighting: str = "uniform",
+    weighting: str = "auto",
     mua_per_cm: float | Mapping[str, float] = ADULT_HEAD_DEFAULTS["mua_per_cm"],
     musp_per_cm: float | Mapping[str, float] = ADULT_HEAD_DEFAULTS["musp_per_cm"],
     n: float = ADULT_HEAD_DEFAULTS["n"],
@@ -68,8 +68,9 @@ def flow_from_g2(
         Lag range (s) used in the fit.
     decay_floor : float, optional
         Fit each curve until g2 - 1 falls below this fraction of β.
-    weighting : {"uniform", "noise-model"}, default="uniform"
-        ``"noise-model"`` needs count rates (see :func:`fstats.flow.fit_g2`).
+    weighting : {"auto", "uniform", "noise-model"}, default="auto"
+        ``"noise-model"`` needs count rates (see :func:`fstats.flow.fit_g2`); ``"auto"``
+        uses it when the recording has count rates, else uniform weights.
     mua_per_cm, musp_per_cm : float or mapping of channel name to float
         Optical properties in 1/cm (defaults: adult head, :data:`ADULT_HEAD_DEFAULTS`).
     n : float, default=1.4
@@ -127,6 +128,16 @@ def flow_from_g2(
             g2.shape,
         )
     names = recording.channel_names
+    if weighting == "auto":
+        weighting = "uniform" if recording.count_rate_hz is None else "noise-model"
+    elif weighting == "noise-model" and recording.count_rate_hz is None:
+        raise InputError(
+            recording.source or "recording",
+            "count_rate_hz",
+            "photon count rates for the noise-model weighting",
+            "none",
+            hint="use weighting='uniform'",
+        )
     t_int = float(integration_time_s) if integration_time_s else 1.0 / recording.sfreq_hz
     bfi = np.full((n_times, n_channels), np.nan)
     beta_out = np.full((n_times, n_channels), np.nan)
@@ -196,6 +207,7 @@ def flow_from_g2(
             if not isinstance(musp_per_cm, Mapping)
             else dict(musp_per_cm),
             "integration_time_s": t_int,
+            "weighting": weighting,
             "n_lags": int(n_lags),
         },
         "curves": curves,

@@ -30,7 +30,12 @@ BLOCKING_REASONS: tuple[str, ...] = (
     "zero count rate",
 )
 #: Reasons that leave a curve fitted but marked.
-QUALITY_REASONS: tuple[str, ...] = ("low count rate", "poor fit", "not converged")
+QUALITY_REASONS: tuple[str, ...] = (
+    "low count rate",
+    "poor fit",
+    "beta out of range",
+    "not converged",
+)
 
 
 def stack_curves(curves, n_lags: int) -> tuple[np.ndarray, np.ndarray]:
@@ -96,7 +101,7 @@ def screen_curves(
     *,
     wrong_length: np.ndarray | None = None,
     count_rate_hz: np.ndarray | None = None,
-    min_beta: float = 0.02,
+    min_excess: float = 0.0,
     max_tail_ratio: float = 0.5,
     n_edge: int = 3,
 ) -> dict[str, np.ndarray]:
@@ -111,14 +116,14 @@ def screen_curves(
         From :func:`stack_curves`.
     count_rate_hz : ndarray, shape (n_curves,), optional
         Photon count rate in counts/s; zero or negative blocks the curve.
-    min_beta : float, default=0.02
-        g2 - 1 averaged over the first ``n_edge`` fitted lags must exceed this,
-        else the curve is "g2 below 1" (no correlation left).
+    min_excess : float, default=0.0
+        g2 - 1 averaged over the first half of the fitted lags must exceed this, else
+        the curve is "g2 below 1" (no correlation left, or a wrongly normalised curve).
     max_tail_ratio : float, default=0.5
         The median of g2 - 1 over the last quarter of the fitted lags, divided by the
-        mean over the first ``n_edge``, must stay below this, else "non-decaying g2".
+        mean over the first half, must stay below this, else "non-decaying g2".
     n_edge : int, default=3
-        Number of lags averaged at the start (and the least number at the end).
+        Least number of lags averaged at either end.
 
     Returns
     -------
@@ -138,16 +143,18 @@ def screen_curves(
     open_ = ~(wrong | nonfinite)
 
     excess = np.where(mask, g2 - 1.0, np.nan)
-    # head: first n_edge fitted lags; tail: last quarter of the fitted lags (medians)
+    # head: first half of the fitted lags (mean); tail: last quarter (median).  Both
+    # average many lags, because the first lags of a correlator (smallest bins) carry
+    # the most photon noise.
     order = np.cumsum(mask, axis=1)
     count = mask.sum(axis=1, keepdims=True)
-    head = mask & (order <= n_edge)
+    head = mask & (order <= np.maximum(count // 2, n_edge))
     tail = mask & (order > count - np.maximum(count // 4, n_edge))
     with np.errstate(invalid="ignore"), warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN rows of blocked curves
         head_mean = np.nanmean(np.where(head & open_[:, None], excess, np.nan), axis=1)
         tail_mean = np.nanmedian(np.where(tail & open_[:, None], excess, np.nan), axis=1)
-    below = open_ & ~(head_mean > min_beta)
+    below = open_ & ~(head_mean > min_excess)
     open_ &= ~below
     flat = open_ & ~(tail_mean < max_tail_ratio * head_mean)
     open_ &= ~flat
