@@ -8,7 +8,6 @@ from numpy.testing import assert_allclose
 from scipy import stats
 from statsmodels.stats.meta_analysis import combine_effects
 
-from fstats.errors import InputError
 from fstats.group import TABLE_COLUMNS, GroupModel
 
 
@@ -38,8 +37,9 @@ def test_one_sample_equals_scipy_ttest_1samp(cohort):
     tables, participants = cohort
     row = _row(GroupModel().fit(tables, participants))
     ref = stats.ttest_1samp(_values(tables).to_numpy(), 0.0)
-    assert_allclose([row["stat"], row["p"], row["df"]], [ref.statistic, ref.pvalue, ref.df],
-                    rtol=1e-12)
+    assert_allclose(
+        [row["stat"], row["p"], row["df"]], [ref.statistic, ref.pvalue, ref.df], rtol=1e-12
+    )
 
 
 def test_runs_are_averaged_within_subject(cohort_factory):
@@ -60,23 +60,30 @@ def test_two_sample_equals_scipy_ttest_ind(cohort, equal_variance):
     row = _row(res)
     values = _values(tables)
     group = participants.set_index("participant_id").loc[values.index, "group"]
-    ref = stats.ttest_ind(values[group == "older"], values[group == "younger"],
-                          equal_var=equal_variance)
+    ref = stats.ttest_ind(
+        values[group == "older"], values[group == "younger"], equal_var=equal_variance
+    )
     assert row["comparison"] == "older - younger"
-    assert_allclose([row["stat"], row["p"], row["df"]], [ref.statistic, ref.pvalue, ref.df],
-                    rtol=1e-12)
+    assert_allclose(
+        [row["stat"], row["p"], row["df"]], [ref.statistic, ref.pvalue, ref.df], rtol=1e-12
+    )
 
 
 def test_dersimonian_laird_equals_combine_effects(cohort):
     """Source: statsmodels combine_effects(method_re='dl') on the subject estimates and se²."""
     tables, participants = cohort
-    row = _row(GroupModel(weighting="dersimonian-laird", knapp_hartung=False)
-               .fit(tables, participants))
+    row = _row(
+        GroupModel(weighting="dersimonian-laird", knapp_hartung=False).fit(tables, participants)
+    )
     sel = tables[(tables["channel"] == "frontal_a") & (tables["term"] == "subtract")]
-    ref = combine_effects(sel["estimate_pct"].to_numpy(), sel["se_pct"].to_numpy() ** 2,
-                          method_re="dl")
-    assert_allclose([row["estimate"], row["se"], row["tau2"], row["i2"]],
-                    [ref.mean_effect_re, ref.sd_eff_w_re, ref.tau2, ref.i2], rtol=1e-10)
+    ref = combine_effects(
+        sel["estimate_pct"].to_numpy(), sel["se_pct"].to_numpy() ** 2, method_re="dl"
+    )
+    assert_allclose(
+        [row["estimate"], row["se"], row["tau2"], row["i2"]],
+        [ref.mean_effect_re, ref.sd_eff_w_re, ref.tau2, ref.i2],
+        rtol=1e-10,
+    )
     assert row["stat_kind"] == "z"
 
 
@@ -170,14 +177,18 @@ def test_influence_flags_an_outlier(cohort):
     must be flagged, and the LOO estimate equals the mean of the other subjects."""
     tables, participants = cohort
     tables = tables.copy()
-    hit = (tables["subject"] == "sub-03") & (tables["channel"] == "frontal_a") & (
-        tables["term"] == "subtract")
+    hit = (
+        (tables["subject"] == "sub-03")
+        & (tables["channel"] == "frontal_a")
+        & (tables["term"] == "subtract")
+    )
     tables.loc[hit, "estimate_pct"] += 60.0
     res = GroupModel().fit(tables, participants)
     assert "sub-03" in _row(res)["influential"].split("; ")
     inf = res.influence
     own = inf[(inf["channel"] == "frontal_a") & (inf["term"] == "subtract")].set_index(
-        "participant_id")
+        "participant_id"
+    )
     others = _values(tables).drop("sub-03")
     assert_allclose(own.loc["sub-03", "estimate_without"], others.mean(), rtol=1e-12)
 

@@ -7,8 +7,25 @@ from statsmodels.stats.multitest import multipletests
 
 from fstats.group.multiple import adjust_pvalues, bonferroni, fdr_bh, holm
 
-BH_1995 = np.array([0.0001, 0.0004, 0.0019, 0.0095, 0.0201, 0.0278, 0.0298, 0.0344, 0.0459,
-                    0.3240, 0.4262, 0.5719, 0.6528, 0.7590, 1.000])
+BH_1995 = np.array(
+    [
+        0.0001,
+        0.0004,
+        0.0019,
+        0.0095,
+        0.0201,
+        0.0278,
+        0.0298,
+        0.0344,
+        0.0459,
+        0.3240,
+        0.4262,
+        0.5719,
+        0.6528,
+        0.7590,
+        1.000,
+    ]
+)
 
 
 def test_bh_worked_example_rejects_four():
@@ -17,17 +34,38 @@ def test_bh_worked_example_rejects_four():
     adjusted = fdr_bh(BH_1995)
     assert np.sum(adjusted <= 0.05) == 4
     assert np.all(adjusted[:4] <= 0.05)
-    assert_allclose(adjusted, [0.0015, 0.003, 0.0095, 0.035625, 0.0603, 0.063857, 0.063857,
-                               0.0645, 0.0765, 0.486, 0.581182, 0.714875, 0.753231, 0.813214,
-                               1.0], atol=1e-6)
+    assert_allclose(
+        adjusted,
+        [
+            0.0015,
+            0.003,
+            0.0095,
+            0.035625,
+            0.0603,
+            0.063857,
+            0.063857,
+            0.0645,
+            0.0765,
+            0.486,
+            0.581182,
+            0.714875,
+            0.753231,
+            0.813214,
+            1.0,
+        ],
+        atol=1e-6,
+    )
 
 
 def test_holm_worked_example_rejects_three():
     """Source: Holm (1979) Scand J Statist 6:65-70 step-down rule; REFERENCE-CHECKS 3.2 values."""
     adjusted = holm(BH_1995)
     assert np.sum(adjusted <= 0.05) == 3
-    assert_allclose(adjusted[:9], [0.0015, 0.0056, 0.0247, 0.114, 0.2211, 0.278, 0.278, 0.278,
-                                   0.3213], atol=1e-9)
+    assert_allclose(
+        adjusted[:9],
+        [0.0015, 0.0056, 0.0247, 0.114, 0.2211, 0.278, 0.278, 0.278, 0.3213],
+        atol=1e-9,
+    )
     assert_allclose(adjusted[9:], 1.0)
 
 
@@ -36,8 +74,9 @@ def test_bonferroni_worked_example_rejects_three():
     assert np.sum(bonferroni(BH_1995) <= 0.05) == 3
 
 
-@pytest.mark.parametrize(("ours", "theirs"), [("fdr", "fdr_bh"), ("holm", "holm"),
-                                              ("bonferroni", "bonferroni")])
+@pytest.mark.parametrize(
+    ("ours", "theirs"), [("fdr", "fdr_bh"), ("holm", "holm"), ("bonferroni", "bonferroni")]
+)
 def test_matches_statsmodels_multipletests_on_random_p(ours, theirs):
     """Source: statsmodels.stats.multitest.multipletests (independent implementation)."""
     rng = np.random.default_rng(3)

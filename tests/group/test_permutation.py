@@ -37,8 +37,10 @@ def test_null_rejection_rate():
     """Source: common practice - under a symmetric null the test rejects at about alpha
     (300 null datasets, n=10, exact test; band 0.02-0.09)."""
     rng = np.random.default_rng(2)
-    p = [sign_flip_test(rng.standard_t(3, size=10), n_permutations=1024, rng=rng).p[0]
-         for _ in range(300)]
+    p = [
+        sign_flip_test(rng.standard_t(3, size=10), n_permutations=1024, rng=rng).p[0]
+        for _ in range(300)
+    ]
     assert 0.02 <= np.mean(np.array(p) <= 0.05) <= 0.09
 
 

@@ -36,8 +36,11 @@ def test_dersimonian_laird_matches_statsmodels_combine_effects():
     assert_allclose(fit.i2, ref.i2, rtol=1e-12)
     frame = ref.summary_frame()
     test = fit.test(0)
-    assert_allclose([test["ci_low"], test["ci_high"]],
-                    frame.loc["random effect", ["ci_low", "ci_upp"]].to_numpy(float), rtol=1e-10)
+    assert_allclose(
+        [test["ci_low"], test["ci_high"]],
+        frame.loc["random effect", ["ci_low", "ci_upp"]].to_numpy(float),
+        rtol=1e-10,
+    )
 
 
 def test_knapp_hartung_matches_statsmodels_hksj():
@@ -70,8 +73,9 @@ def test_reml_maximises_the_restricted_likelihood(seed, two_groups):
         x = np.column_stack([x, np.repeat([0.0, 1.0], k // 2)])
     v = rng.uniform(0.5, 4.0, size=k)
     y = x @ np.arange(1.0, x.shape[1] + 1) + rng.normal(0, np.sqrt(v + 2.0))
-    found = optimize.minimize_scalar(_reml_negloglik, bounds=(0, 100), args=(y, v, x),
-                                     method="bounded", options={"xatol": 1e-10})
+    found = optimize.minimize_scalar(
+        _reml_negloglik, bounds=(0, 100), args=(y, v, x), method="bounded", options={"xatol": 1e-10}
+    )
     expected = found.x if found.fun < _reml_negloglik(0.0, y, v, x) else 0.0
     assert_allclose(tau2_reml(y, v, x), expected, atol=1e-6)
 

@@ -19,8 +19,9 @@ def test_one_sample_matches_scipy_ttest_1samp():
     x = np.random.default_rng(2).normal(1.0, 2.0, size=17)
     ref = stats.ttest_1samp(x, 0.0)
     res = one_sample_t(x, alpha=0.1)
-    assert_allclose([res["stat"], res["p"], res["df"]], [ref.statistic, ref.pvalue, ref.df],
-                    rtol=1e-12)
+    assert_allclose(
+        [res["stat"], res["p"], res["df"]], [ref.statistic, ref.pvalue, ref.df], rtol=1e-12
+    )
     ci = ref.confidence_interval(0.9)
     assert_allclose([res["ci_low"], res["ci_high"]], [ci.low, ci.high], rtol=1e-12)
 
@@ -32,8 +33,9 @@ def test_two_sample_matches_scipy_ttest_ind(equal_variance):
     a, b = rng.normal(2, 1, size=9), rng.normal(0, 3, size=14)
     ref = stats.ttest_ind(a, b, equal_var=equal_variance)
     res = two_sample_t(a, b, equal_variance=equal_variance)
-    assert_allclose([res["stat"], res["p"], res["df"]], [ref.statistic, ref.pvalue, ref.df],
-                    rtol=1e-12)
+    assert_allclose(
+        [res["stat"], res["p"], res["df"]], [ref.statistic, ref.pvalue, ref.df], rtol=1e-12
+    )
     ci = ref.confidence_interval(0.95)
     assert_allclose([res["ci_low"], res["ci_high"]], [ci.low, ci.high], rtol=1e-10)
 
