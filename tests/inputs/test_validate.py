@@ -84,7 +84,7 @@ def test_times_rounded_to_milliseconds_are_accepted(tmp_path):
 def test_jitter_beyond_tolerance_is_refused():
     """Source: common practice - a sample far from its grid point is not a rounding error."""
     times = np.arange(100) / 10.0
-    times[50] += 0.4 * 0.1  # 40 % of a step: each step ok to 5 %? no - refused on the step
+    times[50] += 0.4 * 0.1  # one sample 40 % of a step late: the step into it is refused
     with pytest.raises(InputError, match="line 52"):
         regular_grid(times, np.ones((100, 1)), np.arange(100), path="f", where=_where, repairs=[])
     assert JITTER_TOLERANCE == 0.05

@@ -1,0 +1,104 @@
+"""SNIRF details: units, the two-value time form, g2-only files, foreign data types."""
+
+import h5py
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose, assert_array_equal
+
+from fstats.inputs import read_snirf, write_snirf
+
+
+def _written(tmp_path, build, **kw):
+    recording = build(9, **kw)
+    return recording, write_snirf(recording, tmp_path / "sub-01_task-subtract_dcs.snirf")
+
+
+def test_length_and_time_units_are_converted(tmp_path, build):
+    """Source: SNIRF specification - positions in LengthUnit, times in TimeUnit (metaDataTags)."""
+    recording, path = _written(tmp_path, build, g2=True)
+    with h5py.File(path, "r+") as f:
+        f["/nirs/probe/detectorPos3D"][...] = f["/nirs/probe/detectorPos3D"][()] / 10.0
+        del f["/nirs/metaDataTags/LengthUnit"]
+        f["/nirs/metaDataTags"].create_dataset("LengthUnit", data="cm")
+        f["/nirs/data1/time"][...] = f["/nirs/data1/time"][()] * 1000.0
+        f["/nirs/probe/correlationTimeDelays"][...] = recording.lags_s * 1000.0
+        del f["/nirs/metaDataTags/TimeUnit"]
+        f["/nirs/metaDataTags"].create_dataset("TimeUnit", data="ms")
+    back = read_snirf(path)
+    assert [c.separation_cm for c in back.channels] == [1.0, 3.0, 3.0]
+    assert_allclose(back.times_s, recording.times_s, rtol=1e-12, atol=1e-15)
+    assert_allclose(back.lags_s, recording.lags_s, rtol=1e-12)
+
+
+def test_two_value_time_form(tmp_path, build):
+    """Source: SNIRF specification - time may be given as [start, step]."""
+    recording, path = _written(tmp_path, build)
+    with h5py.File(path, "r+") as f:
+        del f["/nirs/data1/time"]
+        f["/nirs/data1"].create_dataset("time", data=np.array([0.0, 0.05]))
+    assert_allclose(read_snirf(path).times_s, recording.times_s, rtol=1e-12)
+
+
+def test_bfi_in_mm2_per_s_is_converted(tmp_path, build):
+    """Source: closed form - 1 mm²/s = 0.01 cm²/s."""
+    recording, path = _written(tmp_path, build)
+    with h5py.File(path, "r+") as f:
+        f["/nirs/data1/dataTimeSeries"][:, :3] = recording.flow * 100.0
+        for k in (1, 2, 3):
+            del f[f"/nirs/data1/measurementList{k}/dataUnit"]
+            f[f"/nirs/data1/measurementList{k}"].create_dataset("dataUnit", data="mm2/s")
+    back = read_snirf(path)
+    assert back.flow_unit == "cm2/s"
+    assert_allclose(back.flow, recording.flow, rtol=1e-12)
+
+
+def test_g2_only_file_gives_missing_flow(tmp_path, build):
+    """Source: CONTRACTS section 10 - the flow stage fills flow from g2."""
+    recording, path = _written(tmp_path, build, g2=True)
+    with h5py.File(path, "r+") as f:
+        data = f["/nirs/data1"]
+        series = data["dataTimeSeries"][()][:, 3:]
+        del data["dataTimeSeries"]
+        data.create_dataset("dataTimeSeries", data=series)
+        for k in range(1, 4):
+            del data[f"measurementList{k}"]
+        for k in range(4, 4 + 48):
+            data.move(f"measurementList{k}", f"measurementList{k - 3}")
+    back = read_snirf(path)
+    assert back.provenance["flow_missing"] is True
+    assert np.isnan(back.flow).all()
+    assert_array_equal(back.g2, recording.g2)
+
+
+def test_foreign_measurements_are_ignored(tmp_path, build):
+    """Source: SNIRF specification - dataType 1 is continuous-wave amplitude, not DCS."""
+    recording, path = _written(tmp_path, build)
+    with h5py.File(path, "r+") as f:
+        data = f["/nirs/data1"]
+        series = data["dataTimeSeries"][()]
+        del data["dataTimeSeries"]
+        data.create_dataset("dataTimeSeries", data=np.column_stack([series, series[:, 0]]))
+        extra = data.create_group("measurementList4")
+        for field, value in (
+            ("sourceIndex", 1),
+            ("detectorIndex", 1),
+            ("wavelengthIndex", 1),
+            ("dataType", 1),
+            ("dataTypeIndex", 1),
+        ):
+            extra.create_dataset(field, data=np.int32(value))
+    back = read_snirf(path)
+    assert_array_equal(back.flow, recording.flow)
+
+
+def test_names_without_detector_labels(tmp_path, build):
+    """Source: SNIRF specification - detectorLabels are optional; channels fall back to S/D."""
+    _, path = _written(tmp_path, build)
+    with h5py.File(path, "r+") as f:
+        del f["/nirs/probe/detectorLabels"]
+        del f["/nirs/metaDataTags/fstats_short_channels"]
+    back = read_snirf(path, short_threshold_cm=1.2)
+    assert back.channel_names == ("S1-D1", "S1-D2", "S1-D3")
+    assert back.short_channels == ("S1-D1",)
+    with pytest.raises(KeyError):
+        back.channel_index("scalp")
