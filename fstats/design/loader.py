@@ -41,7 +41,11 @@ def _compose(text: str, path: str) -> tuple[object, dict]:
             mark = exc.problem_mark or exc.context_mark
             line = mark.line + 1 if mark else "?"
             problem = (exc.problem or "invalid YAML").strip()
-            raise InputError(path, f"line {line}", "valid YAML", problem) from None
+            hint = None
+            if exc.context_mark is not None and exc.context_mark.line + 1 != line:
+                context = (exc.context or "the construct").strip()
+                hint = f"{context} started at line {exc.context_mark.line + 1}"
+            raise InputError(path, f"line {line}", "valid YAML", problem, hint=hint) from None
         except yaml.YAMLError as exc:
             raise InputError(path, "line ?", "valid YAML", str(exc).splitlines()[0]) from None
         if node is None:
@@ -271,7 +275,12 @@ def _check_conditions(spec: DesignSpec) -> None:
                 _fail(
                     spec,
                     ("conditions", name, "response", param),
-                    f"only {sorted(allowed) or 'no parameters'} for response model {resp.model!r}",
+                    (
+                        f"only the parameters {', '.join(sorted(allowed))}"
+                        if allowed
+                        else "no parameters"
+                    )
+                    + f" for response model {resp.model!r}",
                     param,
                 )
         if resp.model == "fir":

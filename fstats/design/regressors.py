@@ -87,7 +87,8 @@ def stimulus_on_grid(
     ndarray, shape (n_fine,)
         Bin averages: a block contributes its height times the covered fraction of
         each bin (exact, also for edges inside a bin); an impulse contributes
-        ``amplitude / fine_step_s`` split linearly between the two nearest bins.
+        ``amplitude / fine_step_s`` split linearly between the two bins whose
+        centres bracket its onset.
         Events outside the grid are clipped.
     """
     onsets = np.asarray(onsets_s, dtype=float)
@@ -105,10 +106,11 @@ def stimulus_on_grid(
         np.add.at(steps, k, sign * amps[is_block] * (1.0 - f))
         np.add.at(steps, k + 1, sign * amps[is_block] * f)
     stim = np.cumsum(steps)[:n_fine]
-    # Impulses: area split between the two neighbouring bins.
+    # Impulses: area split linearly between the two bins whose centres (t_i + step/2)
+    # bracket the onset, so the mass sits at the onset to second order.
     u = (onsets[~is_block] - start_s) / fine_step_s
     inside = (u >= 0) & (u < n_fine)
-    u, a = u[inside], amps[~is_block][inside]
+    u, a = np.clip(u[inside] - 0.5, 0.0, None), amps[~is_block][inside]
     k = np.floor(u).astype(int)
     f = u - k
     np.add.at(impulses, k, a * (1.0 - f) / fine_step_s)

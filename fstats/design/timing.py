@@ -10,6 +10,7 @@ import numpy as np
 
 from fstats.design.spec import CycleSpec, DesignSpec
 from fstats.errors import DesignWarning, InputError, suggest
+from fstats.inputs import read_events
 from fstats.inputs.recording import Recording, TaskTiming
 
 __all__ = ["cycle_events", "design_events"]
@@ -70,10 +71,6 @@ def cycle_events(
 
 
 def _read_events_file(spec: DesignSpec, recording: Recording) -> TaskTiming:
-    try:
-        from fstats.inputs import read_events
-    except ImportError:  # exported by fstats.inputs once its readers land
-        from fstats.inputs.events import read_events
     raw = Path(spec.timing.events.file)
     path = raw if raw.is_absolute() else Path(spec.source).parent / raw
     if not path.exists():
