@@ -280,7 +280,9 @@ def run_tasks(
     name = scheduler if isinstance(scheduler, str) or scheduler is None else None
     if name == "inline":
         for index, task in enumerate(tasks):
-            record(index, run_subject_task(function, task))
+            outcome = run_subject_task(function, task)
+            # this process's handlers already showed the task's messages: no replay
+            record(index, dataclasses.replace(outcome, messages=()))
     elif name in (None, "processes"):
         _run_processes(tasks, function, min(workers, len(tasks)), record)
     else:
