@@ -115,7 +115,7 @@ def check_subject_tables(tables: pd.DataFrame, *, source: str = "subject results
     out["is_short"] = out["is_short"].map(_truthy)
     for col in ("estimate", "se", "estimate_pct", "se_pct"):
         out[col] = pd.to_numeric(out[col], errors="coerce").astype(float)
-    key = ["subject", "session", "channel", "term"]
+    key = ["subject", "session", "channel", "term", "term_kind"]
     dup = out.duplicated(key, keep=False)
     if dup.any():
         first = out.loc[dup, key].iloc[0].tolist()
@@ -226,7 +226,23 @@ def select_rows(
             hint="name terms explicitly or include short channels",
         )
     rows = tables[tables["term"].isin(terms) & tables["channel"].isin(channels)]
-    return rows.reset_index(drop=True), tuple(terms), tuple(channels)
+    f_only = set(rows.loc[rows["term_kind"] == "F", "term"]) - set(
+        rows.loc[rows["term_kind"] != "F", "term"]
+    )
+    if f_only:
+        raise InputError(
+            source,
+            "column 'term'",
+            "a regressor or t contrast (F tests are not pooled across subjects)",
+            sorted(f_only)[0],
+        )
+    rows = rows[rows["term_kind"] != "F"]
+    # A name used for a regressor and a contrast (e.g. contrast 'subtract' = regressor
+    # 'subtract'): one row per subject/session/channel/term, the contrast row preferred.
+    preference = rows["term_kind"].map({"contrast": 0, "regressor": 1}).fillna(2)
+    rows = rows.assign(_order=preference).sort_values("_order", kind="mergesort")
+    rows = rows.drop_duplicates(["subject", "session", "channel", "term"]).drop(columns="_order")
+    return rows.sort_index().reset_index(drop=True), tuple(terms), tuple(channels)
 
 
 def average_runs(rows: pd.DataFrame, *, weighted: bool) -> pd.DataFrame:

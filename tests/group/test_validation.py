@@ -129,3 +129,18 @@ def test_two_sample_without_participants_is_an_error(cohort):
     tables, _ = cohort
     with pytest.raises(InputError, match="participants"):
         GroupModel(kind="two-sample").fit(tables, None)
+
+
+def test_contrast_named_like_a_regressor_is_counted_once(cohort):
+    """Source: common practice - a design may name a contrast after its regressor; each
+    subject still contributes one value (scipy.stats.ttest_1samp as the reference)."""
+    from scipy import stats
+
+    tables, participants = cohort
+    extra = tables[tables["term"] == "subtract"].assign(term_kind="contrast", condition="")
+    doubled = pd.concat([tables, extra], ignore_index=True)
+    res = GroupModel().fit(doubled, participants)
+    row = res.table().set_index(["channel", "term"]).loc[("frontal_a", "subtract")]
+    sel = tables[(tables["channel"] == "frontal_a") & (tables["term"] == "subtract")]
+    assert row["n_subjects"] == 16
+    np.testing.assert_allclose(row["stat"], stats.ttest_1samp(sel["estimate_pct"], 0).statistic)
