@@ -123,6 +123,22 @@ class GroupModel:
         Seed of the permutation generator when ``fit`` gets no ``rng``.
     influence : bool, default=True
         Leave-one-out influence check for the summary models.
+
+    Notes
+    -----
+    - Several runs of a subject: summary models average them first (plain mean with
+      ``se = sqrt(Σ se²)/n_runs``, or the inverse-variance mean for weighted models);
+      mixed models use every run as a row.
+    - Paired and interaction models use the within-subject difference of the two terms'
+      estimates with ``se = sqrt(se_a² + se_b²)``, which ignores the covariance of the
+      two betas; a subject-level contrast term (pooled with ``one-sample``) avoids that.
+    - ``effect_size`` is Hedges' g of the subject values with a noncentral-t interval
+      (:mod:`fstats.group.effect_size`); descriptive, whatever the weighting; NaN for
+      mixed models.
+    - ``influential`` lists subjects whose removal moves the estimate by more than
+      ``2/sqrt(n)`` of its leave-one-out SE (DFBETAS rule of Belsley, Kuh & Welsch 1980);
+      summary models only.
+    - ``p_permutation`` uses the unweighted one-sample t whatever the weighting.
     """
 
     kind: str = "one-sample"
