@@ -26,12 +26,15 @@ import dataclasses
 import logging
 import multiprocessing
 import os
+import shutil
 import threading
 import time
 import traceback
+import uuid
 import warnings
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
+from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
@@ -284,40 +287,79 @@ def run_tasks(
             # this process's handlers already showed the task's messages: no replay
             record(index, dataclasses.replace(outcome, messages=()))
     elif name in (None, "processes"):
-        _run_processes(tasks, function, min(workers, len(tasks)), record)
+        _run_processes(tasks, function, workers, record)
     else:
         _run_dask(tasks, function, workers, scheduler, record)
     return [results[i] for i in range(len(tasks))]
 
 
 def _run_processes(tasks, function, workers: int, record) -> None:
+    """Run on a spawn process pool, isolating a task that kills its worker.
+
+    When a worker process dies (out of memory, a signal), the pool breaks and every
+    unfinished task is lost with it.  Those are rerun in single-worker pools, where
+    tasks run one after another: the first lost task of such a pool is the one that
+    killed the worker; it is recorded as failed and the others go on.
+    """
+    pending = dict(enumerate(tasks))
+    size = workers
+    while pending:
+        lost = _run_pool(pending, function, size, record)
+        if not lost:
+            return
+        if size == 1:
+            culprit = min(lost)
+            task = lost.pop(culprit)
+            shutil.rmtree(task.work_dir, ignore_errors=True)
+            record(culprit, _failed(task, BrokenProcessPool("the process died")))
+        if lost:
+            logger.warning(
+                "a worker process died; rerunning %d unfinished subject(s) one at a time",
+                len(lost),
+            )
+        size = 1
+        pending = {}
+        for index, task in sorted(lost.items()):
+            shutil.rmtree(task.work_dir, ignore_errors=True)
+            fresh = f"{task.work_dir.rsplit('-', 1)[0]}-{uuid.uuid4().hex[:8]}"
+            pending[index] = dataclasses.replace(task, work_dir=fresh)
+
+
+def _run_pool(pending: dict, function, workers: int, record) -> dict:
+    """One process pool over ``pending``; returns the tasks lost to a broken pool."""
     context = multiprocessing.get_context("spawn")
     with _single_thread_workers():
         executor = ProcessPoolExecutor(
-            max_workers=workers,
+            max_workers=min(workers, len(pending)),
             mp_context=context,
             initializer=_watch_parent,
             initargs=(os.getpid(),),
         )
         try:
             futures = {
-                executor.submit(run_subject_task, function, task): i for i, task in enumerate(tasks)
+                executor.submit(run_subject_task, function, task): index
+                for index, task in pending.items()
             }
         except BaseException:
             executor.shutdown(wait=False, cancel_futures=True)
             raise
+    lost = {}
     try:
         for future in as_completed(futures):
             index = futures[future]
             try:
                 outcome = future.result()
-            except Exception as exc:  # the worker process died (memory, signal)
-                outcome = _failed(tasks[index], exc)
+            except BrokenProcessPool:  # a worker process died (memory, signal)
+                lost[index] = pending[index]
+                continue
+            except Exception as exc:  # e.g. the task could not be sent to the worker
+                outcome = _failed(pending[index], exc)
             record(index, outcome)
     except BaseException:
         executor.shutdown(wait=False, cancel_futures=True)
         raise
     executor.shutdown(wait=True)
+    return lost
 
 
 def _run_dask(tasks, function, workers: int, scheduler, record) -> None:

@@ -123,10 +123,16 @@ def test_processes_inline_and_dask_write_identical_files(tmp_path):
 
 
 def test_a_dead_worker_fails_its_subject_not_the_run(tmp_path):
-    """Source: common practice - a worker killed by the OS is reported, the run returns."""
-    tasks = _tasks(tmp_path, {"sub-01_task-subtract": b"die\n"})
-    (outcome,) = run_tasks(tasks, standin.die, workers=1)
-    assert outcome.status == "failed" and outcome.error.startswith("worker lost:")
+    """Source: common practice - a worker killed by the OS fails its subject; others complete."""
+    contents = {"sub-01_task-subtract": b"die\n"}
+    contents.update({f"sub-0{i}_task-subtract": f"ok {i}\n".encode() for i in (2, 3, 4)})
+    tasks = _tasks(tmp_path, contents)
+    outcomes = run_tasks(tasks, standin.die, workers=2)
+    assert [o.status for o in outcomes] == ["failed", "computed", "computed", "computed"]
+    assert outcomes[0].error.startswith("worker lost:")
+    assert sorted(p.name for p in (tmp_path / "out" / "subjects").iterdir()) == sorted(
+        list(contents)[1:]
+    )
 
 
 def test_run_subject_task_refuses_to_reuse_a_work_folder(tmp_path):
