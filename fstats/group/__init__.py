@@ -7,7 +7,7 @@ and :func:`write_group_results` writes the tidy table and its JSON sidecar.
 
 from fstats.group.effect_size import hedges_correction, noncentral_t_interval
 from fstats.group.mixed import fit_mixed, formula_variables
-from fstats.group.model import KINDS, TABLE_COLUMNS, GroupModel, GroupResult
+from fstats.group.model import KINDS, GroupModel
 from fstats.group.multiple import CORRECTIONS, adjust_pvalues, bonferroni, fdr_bh, holm
 from fstats.group.permutation import SignFlipResult, sign_flip_test
 from fstats.group.pooling import (
@@ -16,6 +16,7 @@ from fstats.group.pooling import (
     tau2_dersimonian_laird,
     tau2_reml,
 )
+from fstats.group.result import TABLE_COLUMNS, GroupResult
 from fstats.group.summary import WEIGHTINGS, leave_one_out, summary_test
 from fstats.group.tables import SUBJECT_COLUMNS, UNITS
 from fstats.group.ttests import one_sample_t, two_sample_t

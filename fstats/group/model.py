@@ -10,7 +10,7 @@ leave-one-out influence check.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field, fields
+from dataclasses import dataclass, fields
 
 import numpy as np
 import pandas as pd
@@ -20,6 +20,7 @@ from fstats.group._prepare import prepare_inputs
 from fstats.group.mixed import fit_mixed, split_formula
 from fstats.group.multiple import CORRECTIONS, adjust_pvalues
 from fstats.group.permutation import sign_flip_test
+from fstats.group.result import TABLE_COLUMNS, GroupResult
 from fstats.group.summary import WEIGHTINGS, leave_one_out, summary_test
 from fstats.group.tables import UNITS
 
@@ -27,46 +28,6 @@ __all__ = ["KINDS", "TABLE_COLUMNS", "GroupModel", "GroupResult"]
 
 #: Group model kinds.
 KINDS: tuple[str, ...] = ("one-sample", "two-sample", "paired", "interaction", "mixed")
-
-#: Columns of the tidy group table, in order.
-TABLE_COLUMNS: tuple[str, ...] = (
-    "channel",
-    "term",
-    "comparison",
-    "model",
-    "weighting",
-    "units",
-    "estimate",
-    "se",
-    "stat",
-    "stat_kind",
-    "df",
-    "p",
-    "p_adjusted",
-    "reject",
-    "ci_low",
-    "ci_high",
-    "effect_size",
-    "effect_size_ci_low",
-    "effect_size_ci_high",
-    "cohens_d",
-    "n_subjects",
-    "group_a",
-    "group_b",
-    "n_a",
-    "n_b",
-    "mean_a",
-    "mean_b",
-    "tau2",
-    "i2",
-    "p_permutation",
-    "p_permutation_adjusted",
-    "influential",
-    "n_excluded",
-    "excluded",
-    "in_family",
-    "status",
-)
 
 _CHOICES = {"kind": KINDS, "weighting": WEIGHTINGS, "correction": CORRECTIONS, "units": UNITS}
 
@@ -458,40 +419,3 @@ def _permute(model: GroupModel, table: pd.DataFrame, values: dict, rng) -> dict:
         "max_statistic": model.max_statistic,
         "statistic": "unweighted one-sample t",
     }
-
-
-@dataclass(frozen=True, eq=False)
-class GroupResult:
-    """The outcome of a group model.
-
-    Attributes
-    ----------
-    model : GroupModel
-        The settings that produced it.
-    rows : pandas.DataFrame
-        The tidy group table (:data:`TABLE_COLUMNS`); use :meth:`table` for a copy.
-    subject_estimates : pandas.DataFrame
-        Per-subject values that entered each test (for forest plots): ``channel, term,
-        participant_id, group, estimate, se, n_runs, weight, units``.
-    exclusions : list of dict
-        Every left-out subject or row: ``participant_id``, ``reason`` and, where it
-        applies, ``channel``, ``term``, ``session`` ("" = all).
-    influence : pandas.DataFrame
-        Leave-one-out results per test and subject (summary models).
-    settings : dict
-        ``model.settings()``.
-    info : dict
-        Counts and notes (subjects used, family size, permutation settings).
-    """
-
-    model: GroupModel
-    rows: pd.DataFrame
-    subject_estimates: pd.DataFrame
-    exclusions: list = field(default_factory=list)
-    influence: pd.DataFrame = field(default_factory=pd.DataFrame)
-    settings: dict = field(default_factory=dict)
-    info: dict = field(default_factory=dict)
-
-    def table(self) -> pd.DataFrame:
-        """The tidy group table (a copy), one row per channel × term × comparison."""
-        return self.rows.copy()
