@@ -33,13 +33,20 @@ def texts(dataset) -> list[str]:
 
 
 def dataset(path: Path, group: h5py.Group, name: str, what: str):
-    if name not in group or not isinstance(group[name], h5py.Dataset):
+    found = group.get(name)
+    if not isinstance(found, h5py.Dataset):
         raise InputError(path, f"{group.name}/{name}", what, "missing")
-    return group[name]
+    return found
 
 
-def integer(path: Path, group: h5py.Group, name: str) -> int:
-    value = np.asarray(dataset(path, group, name, "an integer")[()]).reshape(-1)
+def integer(path: Path, group: h5py.Group, name: str, default: int | None = None) -> int:
+    """A scalar integer dataset; ``default`` when absent (refused when no default)."""
+    found = group.get(name)
+    if found is None and default is not None:
+        return default
+    if not isinstance(found, h5py.Dataset):
+        raise InputError(path, f"{group.name}/{name}", "an integer", "missing")
+    value = np.asarray(found[()]).reshape(-1)
     if value.size != 1 or not np.isfinite(value[0]) or value[0] != int(value[0]):
         raise InputError(path, f"{group.name}/{name}", "one integer", value.tolist())
     return int(value[0])

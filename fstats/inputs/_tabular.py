@@ -8,12 +8,14 @@ an empty string or ``nan`` are missing values (NaN in numeric columns).
 from __future__ import annotations
 
 import csv
+import io
 import os
-import tempfile
+import uuid
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 
 from fstats.errors import InputError, suggest
 
@@ -21,8 +23,10 @@ __all__ = [
     "SEPARATORS",
     "MISSING_CELLS",
     "Table",
+    "NumericTable",
     "separator_for",
     "read_delimited",
+    "read_numeric",
     "float_column",
     "text_column",
     "require_columns",
@@ -63,6 +67,101 @@ class Table:
     def index(self, name: str) -> int:
         """Column position of ``name``; raises ``ValueError`` when absent."""
         return self.header.index(name)
+
+
+@dataclass(frozen=True, eq=False)
+class NumericTable:
+    """A delimited text file of numbers.
+
+    Parameters
+    ----------
+    path : Path
+        The file.
+    header : tuple of str
+        Column names.
+    values : ndarray, shape (n_rows, n_columns)
+        Cells as floats (NaN for missing cells).
+    lines : ndarray of int, shape (n_rows,)
+        1-based line number of each row in the file.
+    """
+
+    path: Path
+    header: tuple[str, ...]
+    values: np.ndarray
+    lines: np.ndarray
+
+
+_PANDAS_MISSING = ["n/a", "N/A", "nan", "NaN", "NAN", ""]
+# pandas 3 parses floats exactly by default (and deprecates the option); pandas 2 needs it.
+_EXACT_FLOATS = {} if int(pd.__version__.split(".")[0]) >= 3 else {"float_precision": "round_trip"}
+
+
+def _read_numeric_fast(path: Path, complete: tuple[str, ...]) -> NumericTable | None:
+    """The common case through pandas' C parser; None when anything needs a closer look."""
+    try:
+        sep = separator_for(path)
+        text = path.read_text(encoding="utf-8-sig")
+    except (InputError, OSError, UnicodeDecodeError):
+        return None
+    lines = text.splitlines()
+    numbers = [i + 1 for i, line in enumerate(lines) if line.strip()]
+    if len(numbers) < 2 or '"' in text:
+        return None
+    header = tuple(cell.strip() for cell in lines[numbers[0] - 1].split(sep))
+    if "" in header or len(set(header)) != len(header) or len(header) < 2:
+        return None
+    body = [lines[n - 1] for n in numbers[1:]]
+    if any(line.count(sep) != len(header) - 1 for line in body):
+        return None
+    try:
+        frame = pd.read_csv(
+            io.StringIO("\n".join(body)),
+            sep=sep,
+            header=None,
+            dtype=float,
+            na_values=_PANDAS_MISSING,
+            keep_default_na=False,
+            engine="c",
+            **_EXACT_FLOATS,
+        )
+    except (ValueError, pd.errors.ParserError):
+        return None
+    values = frame.to_numpy(dtype=float)
+    if values.shape != (len(body), len(header)):
+        return None
+    for name in complete:
+        if name in header and np.isnan(values[:, header.index(name)]).any():
+            return None
+    return NumericTable(path, header, values, np.array(numbers[1:], dtype=int))
+
+
+def read_numeric(path: str | Path, *, what: str, complete: tuple[str, ...] = ()) -> NumericTable:
+    """A TSV/CSV table of numbers, with the checks of :func:`read_delimited`.
+
+    Parameters
+    ----------
+    path : str or Path
+        The file (separator by extension).
+    what : str
+        What the file should hold, for error messages.
+    complete : tuple of str
+        Columns that may not have missing cells.
+
+    Raises
+    ------
+    InputError
+        As :func:`read_delimited`, or naming the line and column of a cell that is
+        not a number (or is missing in a ``complete`` column).
+    """
+    path = Path(path)
+    fast = _read_numeric_fast(path, complete)
+    if fast is not None:
+        return fast
+    table = read_delimited(path, what=what)
+    values = np.column_stack(
+        [float_column(table, name, allow_missing=name not in complete) for name in table.header]
+    )
+    return NumericTable(path, table.header, values, table.lines)
 
 
 def separator_for(path: str | Path) -> str:
@@ -210,12 +309,12 @@ def write_text_atomic(path: str | Path, text: str) -> Path:
     """Write text under a temporary name in the same folder, then rename it to ``path``."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    temporary = path.with_name(f".{path.name}.{uuid.uuid4().hex[:12]}.partial")
     try:
-        with os.fdopen(handle, "w", encoding="utf-8", newline="") as stream:
+        with open(temporary, "x", encoding="utf-8", newline="") as stream:
             stream.write(text)
         os.replace(temporary, path)
     except BaseException:
-        Path(temporary).unlink(missing_ok=True)
+        temporary.unlink(missing_ok=True)
         raise
     return path

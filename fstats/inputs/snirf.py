@@ -218,11 +218,12 @@ def _read(path: Path, handle: h5py.File, short_threshold_cm: float) -> Recording
                 ignored.append(data_type)
                 continue
             key = tuple(
-                integer(path, entry, f) if f in entry else 1
+                integer(path, entry, f, default=1)
                 for f in ("sourceIndex", "detectorIndex", "wavelengthIndex")
             )
-            index = integer(path, entry, "dataTypeIndex") if "dataTypeIndex" in entry else 1
-            unit = text(entry["dataUnit"][()]) if "dataUnit" in entry else ""
+            index = integer(path, entry, "dataTypeIndex", default=1)
+            unit_set = entry.get("dataUnit")
+            unit = text(unit_set[()]) if unit_set is not None else ""
             columns.append(series[:, column])
             keys.append((DCS_DATA_TYPES[data_type], key, index, unit, entry.name))
     if not keys:

@@ -20,9 +20,8 @@ from fstats.errors import InputError, suggest
 from fstats.inputs._naming import recording_stem, sidecar_path, stem_entities
 from fstats.inputs._tabular import (
     SEPARATORS,
-    float_column,
     format_number,
-    read_delimited,
+    read_numeric,
     separator_for,
     write_text_atomic,
 )
@@ -44,7 +43,7 @@ logger = logging.getLogger(__name__)
 
 
 def _time_and_columns(path: Path, what: str):
-    table = read_delimited(path, what=what)
+    table = read_numeric(path, what=what, complete=("time",))
     if "time" not in table.header:
         raise InputError(
             path,
@@ -56,8 +55,8 @@ def _time_and_columns(path: Path, what: str):
     names = [name for name in table.header if name != "time"]
     if not names:
         raise InputError(path, "line 1 (header)", "at least one column besides 'time'", names)
-    times = float_column(table, "time", allow_missing=False)
-    values = np.column_stack([float_column(table, name) for name in names])
+    times = table.values[:, table.header.index("time")]
+    values = table.values[:, [table.header.index(name) for name in names]]
     return table, times, names, values
 
 

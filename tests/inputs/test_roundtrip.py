@@ -141,3 +141,16 @@ def test_input_recording_is_not_modified(build, tmp_path):
     write_flow_table(original, tmp_path / "r_flow.tsv")
     assert_array_equal(original.flow, flow)
     assert_array_equal(original.g2, g2)
+
+
+def test_quoted_cells_read_the_same(build, tmp_path):
+    """Source: RFC 4180 (CSV) - a quoted field holds the same text as an unquoted one."""
+    original = build(12)
+    path = write_flow_table(original, tmp_path / "q_flow.csv")
+    lines = path.read_text().splitlines()
+    lines[0] = ",".join(f'"{name}"' for name in lines[0].split(","))
+    lines[5] = ",".join(f'"{cell}"' for cell in lines[5].split(","))
+    path.write_text("\n".join(lines) + "\n")
+    back = read_flow_table(path)
+    assert_array_equal(back.flow, original.flow)
+    assert_array_equal(back.times_s, original.times_s)
