@@ -397,6 +397,7 @@ def load_study(path: str | Path) -> StudySpec:
         "alpha": raw.corrections.alpha,
     }
     _check_group_options(path, group_options)
+    _check_design_and_fit(path, design, dict(raw.fit))
     channels = raw.channels
     return StudySpec(
         path=path.resolve(),
@@ -450,3 +451,42 @@ def _check_group_options(path: Path, options: dict) -> None:
         raise InputError(
             path, "key 'group'", "a valid group model", options, hint=str(exc)
         ) from exc
+
+
+def _check_design_and_fit(path: Path, design_path: Path, overrides: dict) -> None:
+    """Load the design and build the subject GLM once, so bad options fail before any task."""
+    try:
+        from fstats.design import load_design
+        from fstats.fit import SubjectGLM
+    except ImportError:  # stages not installed: checked in each task
+        return
+    spec = load_design(design_path)  # raises InputError naming the design file
+    design_options = dict(getattr(spec, "fit_options", {}) or {})
+    known = {f.name for f in dataclasses.fields(SubjectGLM)}
+    for name in overrides:
+        if name not in known:
+            raise InputError(
+                path,
+                f"key 'fit.{name}'",
+                f"a fit option (one of {sorted(known)})",
+                name,
+                hint=suggest(name, known),
+            )
+    for name in design_options:
+        if name not in known:
+            raise InputError(
+                design_path,
+                f"key 'fit_options.{name}'",
+                f"a fit option (one of {sorted(known)})",
+                name,
+                hint=suggest(name, known),
+            )
+    try:
+        SubjectGLM(**{**design_options, **overrides})
+    except InputError as exc:
+        source, key = (path, "fit") if exc.where in overrides else (design_path, "fit_options")
+        raise InputError(
+            source, f"key '{key}.{exc.where}'", exc.expected, exc.found, hint=exc.hint
+        ) from None
+    except (TypeError, ValueError) as exc:
+        raise InputError(path, "key 'fit'", "valid fit options", overrides, hint=str(exc)) from exc

@@ -2,12 +2,15 @@
 
 import os
 import textwrap
+from pathlib import Path
 
 import _study_standin as standin
 
 from fstats.study.engine import run_tasks
 from fstats.study.run import plan_tasks
 from fstats.study.studyfile import load_study
+
+DESIGN = Path(__file__).resolve().parents[2] / "designs" / "subtract_blocks.yaml"
 
 
 def _study(tmp_path, *, fit="{}"):
@@ -17,7 +20,7 @@ def _study(tmp_path, *, fit="{}"):
         folder.mkdir(parents=True, exist_ok=True)
         (folder / f"{pid}_task-subtract_flow.tsv").write_text(f"time\tscalp\n0\t{pid[-1]}\n")
         (folder / f"{pid}_task-subtract_events.tsv").write_text("onset\tduration\ttrial_type\n")
-    (tmp_path / "design.yaml").write_text("name: test\n")
+    (tmp_path / "design.yaml").write_text(DESIGN.read_text())
     path = tmp_path / "study.yaml"
     path.write_text(
         textwrap.dedent(f"""\
@@ -63,7 +66,7 @@ def test_changed_design_or_fit_options_rerun_everything(tmp_path):
     path = _study(tmp_path)
     spec = load_study(path)
     _run(spec)
-    (tmp_path / "design.yaml").write_text("name: test\nfit_options: {method: ols}\n")
+    (tmp_path / "design.yaml").write_text(DESIGN.read_text() + "# one more comment\n")
     assert _run(spec) == ([], [0, 1, 2])
     spec = load_study(_study(tmp_path, fit="{max_ar_order: 3}"))
     assert _run(spec) == ([], [0, 1, 2])

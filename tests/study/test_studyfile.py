@@ -1,17 +1,20 @@
 """Tests of fstats/study/studyfile.py: the study file schema and its error messages."""
 
 import textwrap
+from pathlib import Path
 
 import pytest
 
 from fstats.errors import InputError
 from fstats.study.studyfile import load_study, recording_stem
 
+DESIGN = Path(__file__).resolve().parents[2] / "designs" / "subtract_blocks.yaml"
+
 
 def _tree(tmp_path):
     """A design file and two recordings laid out as a study folder would be."""
     (tmp_path / "designs").mkdir()
-    (tmp_path / "designs" / "blocks.yaml").write_text("name: blocks\n")
+    (tmp_path / "designs" / "blocks.yaml").write_text(DESIGN.read_text())
     data = tmp_path / "data"
     data.mkdir()
     for pid in ("sub-02", "sub-01"):
@@ -142,3 +145,15 @@ def test_group_model_errors_point_at_the_study_key(tmp_path):
         )
     text = VALID.replace("weighting: unweighted}", "options: {groups: [younger, older]}}")
     assert load_study(_study(tmp_path, text)).group_options["groups"] == ("younger", "older")
+
+
+@pytest.mark.skipif(
+    not hasattr(__import__("fstats.fit").fit, "SubjectGLM"), reason="fit stage not available yet"
+)
+def test_fit_option_errors_are_found_before_any_subject_runs(tmp_path):
+    """Source: common practice - a bad option fails at load time, naming the study key."""
+    _tree(tmp_path)
+    with pytest.raises(InputError, match=r"key 'fit.methd'.*did you mean 'method'"):
+        load_study(_study(tmp_path, VALID.replace("{method: ols}", "{methd: ols}")))
+    with pytest.raises(InputError, match=r"study.yaml, key 'fit.method'.*found 'olss'"):
+        load_study(_study(tmp_path, VALID.replace("{method: ols}", "{method: olss}")))
