@@ -11,7 +11,7 @@ from collections.abc import Mapping, Sequence
 import numpy as np
 
 from fstats.report.figures_quality import shade_task_periods
-from fstats.report.plotdata import envelope_decimate, thin_rows
+from fstats.report.plotdata import envelope_decimate, thin_curve, thin_rows
 from fstats.report.style import DIVERGING_CMAP, channel_style, new_figure, plain_label
 
 __all__ = ["design_figure", "fitted_figure", "responses_figure", "acf_figure"]
@@ -155,13 +155,13 @@ def responses_figure(
             ax = axes[row, 0 if short else 1]
             style = channel_style(counters[short], short)
             counters[short] += 1
-            t = np.asarray(curve["time_s"], dtype=float)
-            lo, hi = np.asarray(curve["ci_low"], float), np.asarray(curve["ci_high"], float)
+            t = thin_curve(curve["time_s"])
+            lo, hi = thin_curve(curve["ci_low"]), thin_curve(curve["ci_high"])
             if np.isfinite(lo).any():
                 ax.fill_between(t, lo, hi, color=style.color, alpha=0.22, linewidth=0)
             ax.plot(
                 t,
-                curve["mean"],
+                thin_curve(curve["mean"]),
                 linewidth=1.3,
                 label=plain_label(curve["channel"]),
                 **style.line_kwargs(),

@@ -17,6 +17,8 @@ __all__ = [
     "flow_spectrum",
     "spectral_peak_hz",
     "autocorrelation",
+    "ljung_box",
+    "thin_curve",
     "low_weight_segments",
     "task_spans",
     "epoch_average",
@@ -168,6 +170,64 @@ def autocorrelation(x: np.ndarray, max_lag: int) -> np.ndarray:
     spec = np.fft.rfft(d, n=2 * x.size)
     full = np.fft.irfft(spec * np.conj(spec))[: max_lag + 1]
     return full / denom
+
+
+def ljung_box(x: np.ndarray, n_lags: int) -> tuple[float, float]:
+    """Ljung–Box portmanteau statistic and p-value for lags 1..n_lags.
+
+    Parameters
+    ----------
+    x : ndarray, shape (n_times,)
+        Residual series (NaNs dropped).
+    n_lags : int
+        Number of autocorrelation lags pooled (h).
+
+    Returns
+    -------
+    q : float
+        ``Q = n (n + 2) sum_{k=1}^{h} r_k**2 / (n - k)`` with ``r_k`` from
+        :func:`autocorrelation`.
+    p : float
+        ``P(chi2_h > Q)``.
+
+    Notes
+    -----
+    Ljung & Box (1978), Biometrika 65:297-303.  Computed with the FFT
+    autocorrelation, so it stays fast for long recordings (the same statistic as
+    ``statsmodels.stats.diagnostic.acorr_ljungbox`` without model degrees of freedom).
+    """
+    x = np.asarray(x, dtype=float)
+    x = x[np.isfinite(x)]
+    n = x.size
+    h = int(n_lags)
+    r = autocorrelation(x, h)[1 : h + 1]
+    k = np.arange(1, r.size + 1)
+    q = float(n * (n + 2) * np.sum(r**2 / (n - k)))
+    return q, float(stats.chi2.sf(q, r.size))
+
+
+def thin_curve(values: np.ndarray, max_points: int = 500) -> np.ndarray:
+    """Block means of consecutive samples so a smooth curve has at most ``max_points`` points.
+
+    Parameters
+    ----------
+    values : ndarray, shape (n,)
+    max_points : int, default=500
+
+    Returns
+    -------
+    ndarray, shape (min(n, max_points),)
+        Unchanged copy when already short; otherwise means over near-equal blocks
+        (NaNs ignored).  Apply to times and values alike.
+    """
+    values = np.asarray(values, dtype=float)
+    if values.size <= max_points:
+        return values.copy()
+    edges = np.linspace(0, values.size, max_points + 1).astype(int)
+    sums = np.add.reduceat(np.nan_to_num(values), edges[:-1])
+    counts = np.add.reduceat(np.isfinite(values).astype(float), edges[:-1])
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(counts > 0, sums / counts, np.nan)
 
 
 def low_weight_segments(

@@ -22,6 +22,7 @@ from fstats.report.figures_quality import flow_traces_figure, spectra_figure, we
 from fstats.report.plotdata import (
     autocorrelation,
     flow_spectrum,
+    ljung_box,
     low_weight_segments,
     spectral_peak_hz,
     task_spans,
@@ -129,9 +130,6 @@ def _diagnostic(diag: dict, *names):
 
 def _residual_checks(fits: dict, sfreq_hz: float) -> tuple[dict, dict, dict]:
     """Residual table plus ACF before/after whitening per fitted channel."""
-    from statsmodels.stats.diagnostic import acorr_ljungbox
-    from statsmodels.stats.stattools import durbin_watson
-
     max_lag = int(min(200, max(10, round(10 * sfreq_hz))))
     records, before, after = [], {}, {}
     for name, cf in fits.items():
@@ -155,10 +153,9 @@ def _residual_checks(fits: dict, sfreq_hz: float) -> tuple[dict, dict, dict]:
             clean = np.asarray(test_series, dtype=float)
             clean = clean[np.isfinite(clean)]
             if dw is None and clean.size > 2:
-                dw = float(durbin_watson(clean))
+                dw = float(np.sum(np.diff(clean) ** 2) / np.sum(clean**2))
             if lb is None and clean.size > 30:
-                lags = int(min(20, clean.size // 5))
-                lb = float(acorr_ljungbox(clean, lags=[lags])["lb_pvalue"].iloc[0])
+                lb = ljung_box(clean, int(min(20, clean.size // 5)))[1]
         ar = _access.field_of(cf, "ar_coefs")
         records.append(
             {

@@ -7,6 +7,9 @@ the numbers on the page are genuine.
 
 from __future__ import annotations
 
+import shutil
+import subprocess
+from pathlib import Path
 from types import SimpleNamespace
 
 import numpy as np
@@ -32,7 +35,7 @@ def _boxcar_response(times_s, onsets_s, durations_s):
     return np.convolve(box, kernel)[: times_s.size]
 
 
-def make_case(conditions=("subtract", "recover"), duration_s=300.0, seed=0):
+def make_case(conditions=("subtract", "recover"), duration_s=200.0, seed=0):
     """A recording, design matrix and OLS subject fit (fake SubjectFit) for report tests."""
     rng = np.random.default_rng(seed)
     times = np.arange(0.0, duration_s, 1.0 / SFREQ_HZ)
@@ -199,5 +202,77 @@ def _ols_fit(recording, design):
 
 @pytest.fixture(scope="session")
 def case():
-    """A 5-minute, 20 Hz, three-channel recording with design and fit."""
+    """A 200 s, 20 Hz, three-channel recording with design and fit."""
     return make_case()
+
+
+# --- headless Chromium ---------------------------------------------------------------
+
+CHROMIUM_FLAGS = (
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-quic",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+)
+
+ARTIFACTS = Path(__file__).resolve().parents[1] / "artifacts"
+
+
+def _chromium_path():
+    for candidate in (
+        "/usr/bin/chromium",
+        shutil.which("chromium"),
+        shutil.which("chromium-browser"),
+    ):
+        if candidate and Path(candidate).exists():
+            return candidate
+    return None
+
+
+@pytest.fixture(scope="session")
+def chromium(tmp_path_factory):
+    """Run headless Chromium on a file: returns ``run(page, *extra_flags) -> (stdout, stderr)``.
+
+    Skips (with the reason) where Chromium is not installed.
+    """
+    exe = _chromium_path()
+    if exe is None:
+        pytest.skip(
+            "headless Chromium not installed (Debian package 'chromium'); "
+            "install it to run the browser rendering checks"
+        )
+
+    def run(page: Path, *flags: str, timeout_s: float = 120.0):
+        profile = tmp_path_factory.mktemp("chromium-profile")
+        cmd = [
+            exe,
+            *CHROMIUM_FLAGS,
+            f"--user-data-dir={profile}",
+            "--enable-logging=stderr",
+            "--v=0",
+            *flags,
+            Path(page).resolve().as_uri(),
+        ]
+        done = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout_s, check=False)
+        return done.stdout, done.stderr
+
+    return run
+
+
+def console_problems(stderr: str) -> list[str]:
+    """Lines of Chromium's log that report page console errors or failed loads."""
+    bad = []
+    for line in stderr.splitlines():
+        if "CONSOLE" in line or "Uncaught" in line or "Failed to load resource" in line:
+            bad.append(line)
+    return bad
+
+
+@pytest.fixture(scope="session")
+def case_factory():
+    """``make_case`` itself, for tests that need their own condition names or seeds."""
+    return make_case
