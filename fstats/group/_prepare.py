@@ -90,6 +90,13 @@ class Prepared:
         return sorted(set(ids))
 
 
+def _label(value) -> str:
+    """A group label as text; whole numbers read as floats print without '.0'."""
+    if isinstance(value, float) and value.is_integer():
+        return str(int(value))
+    return str(value)
+
+
 class _Log:
     def __init__(self):
         self.items: list[dict] = []
@@ -146,7 +153,7 @@ def _check_covariates(model, part, kept, log):
                 hint="drop a constant covariate from the formula",
             )
         if values.dtype == object or model.two_groups:
-            counts = values.astype(str).value_counts()
+            counts = values.map(_label).value_counts()
             if model.two_groups and model.groups is not None:
                 counts = counts.reindex(list(model.groups), fill_value=0)
             small = counts[counts < 2]
@@ -162,7 +169,7 @@ def _check_covariates(model, part, kept, log):
 
 
 def _two_groups(model, part, kept, log):
-    labels = part.set_index("participant_id").loc[kept, model.group_column].astype(str)
+    labels = part.set_index("participant_id").loc[kept, model.group_column].map(_label)
     found = sorted(labels.unique())
     if model.groups is None:
         if len(found) != 2:
@@ -265,7 +272,7 @@ def prepare_inputs(model, subject_tables: pd.DataFrame, participants) -> Prepare
     unit_label = "%" if model.units == "percent" else "raw"
     label_of = {}
     if part is not None and model.two_groups:
-        label_of = part.set_index("participant_id")[model.group_column].astype(str).to_dict()
+        label_of = part.set_index("participant_id")[model.group_column].map(_label).to_dict()
     averaged = average_runs(valid, weighted=weighted)
     units: list[Unit] = []
     if model.kind in ("paired", "interaction"):

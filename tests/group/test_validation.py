@@ -144,3 +144,13 @@ def test_contrast_named_like_a_regressor_is_counted_once(cohort):
     sel = tables[(tables["channel"] == "frontal_a") & (tables["term"] == "subtract")]
     assert row["n_subjects"] == 16
     np.testing.assert_allclose(row["stat"], stats.ttest_1samp(sel["estimate_pct"], 0).statistic)
+
+
+def test_numeric_group_labels(cohort):
+    """Source: common practice - groups coded 1/2 in participants.tsv are named '1' and '2'."""
+    tables, participants = cohort
+    participants = participants.assign(
+        group=participants["group"].map({"older": 1.0, "younger": 2.0})
+    )
+    res = GroupModel(kind="two-sample", groups=("2", "1")).fit(tables, participants)
+    assert set(res.table()["comparison"]) == {"2 - 1"}
