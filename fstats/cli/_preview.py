@@ -124,7 +124,10 @@ def summarize_design(design, recording, caught: list[str]) -> str:
     if design.contrasts:
         out.append(
             "contrasts  "
-            + ", ".join(f"{c.name} ({c.kind}, {c.weights.shape[0]} row)" for c in design.contrasts)
+            + ", ".join(
+                f"{c.name} ({c.kind}, {c.weights.shape[0]} row{'s' * (c.weights.shape[0] > 1)})"
+                for c in design.contrasts
+            )
         )
     fit_opts = info.get("fit_options") or {}
     if fit_opts:

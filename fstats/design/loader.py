@@ -170,6 +170,8 @@ def _raise_validation(exc: pydantic.ValidationError, path: str, lines: dict) -> 
     if kind == "literal_error" and isinstance(found, str):
         options = [o.strip(" '") for o in _expected_text(first).replace(" or ", ", ").split(",")]
         hint = suggest(found, options)
+    if isinstance(found, bool) and "string" in expected:
+        hint = "quote it: YAML reads yes/no/on/off/true/false unquoted as true or false"
     where = f"line {lines.get(real, '?')}, key {dotted(real)!r}"
     raise InputError(path, where, expected, found, hint=hint) from None
 
