@@ -16,7 +16,14 @@ from scipy import fft
 __all__ = ["shaped_noise", "power_law_noise", "band_noise", "lagged"]
 
 
-def shaped_noise(n_times: int, sfreq_hz: float, amplitude, rng: np.random.Generator) -> np.ndarray:
+def shaped_noise(
+    n_times: int,
+    sfreq_hz: float,
+    amplitude,
+    rng: np.random.Generator,
+    *,
+    n_series: int | None = None,
+) -> np.ndarray:
     """Gaussian noise whose spectrum has the shape ``amplitude(f)**2`` (unit variance expected).
 
     Parameters
@@ -29,18 +36,21 @@ def shaped_noise(n_times: int, sfreq_hz: float, amplitude, rng: np.random.Genera
         Maps frequencies (Hz, ndarray) to the square root of the relative power
         spectral density; the value at 0 Hz is ignored (zero mean).
     rng : numpy.random.Generator
+    n_series : int, optional
+        Number of independent series to draw at once.
 
     Returns
     -------
-    ndarray, shape (n_times,)
+    ndarray, shape (n_times,), or (n_times, n_series) when ``n_series`` is given
         Series with expected variance 1.
     """
     n_pad = fft.next_fast_len(int(n_times * 1.5) + 16, real=True)
     freqs = fft.rfftfreq(n_pad, d=1.0 / sfreq_hz)
     amp = np.zeros(freqs.size)
     amp[1:] = amplitude(freqs[1:])
-    spectrum = amp * (rng.standard_normal(freqs.size) + 1j * rng.standard_normal(freqs.size))
-    series = fft.irfft(spectrum, n=n_pad)
+    shape = (freqs.size,) if n_series is None else (n_series, freqs.size)
+    spectrum = amp * (rng.standard_normal(shape) + 1j * rng.standard_normal(shape))
+    series = fft.irfft(spectrum, n=n_pad, axis=-1)
     # Expected variance of irfft: x_t = (1/N)[Re X_0 + 2 Σ Re(X_k e^{iωt}) + Re X_{N/2}(-1)^t],
     # and Var Re(a (u + iv) e^{iθ}) = a² for standard normal u, v.
     weights = np.full(freqs.size, 4.0)
@@ -48,10 +58,11 @@ def shaped_noise(n_times: int, sfreq_hz: float, amplitude, rng: np.random.Genera
     if n_pad % 2 == 0:
         weights[-1] = 1.0
     expected_var = np.sum(weights * amp**2) / n_pad**2
+    out_shape = (n_times,) if n_series is None else (n_times, n_series)
     if expected_var <= 0:
-        return np.zeros(n_times)
+        return np.zeros(out_shape)
     start = (n_pad - n_times) // 2
-    return series[start : start + n_times] / np.sqrt(expected_var)
+    return series[..., start : start + n_times].T / np.sqrt(expected_var)
 
 
 def power_law_noise(
@@ -62,6 +73,7 @@ def power_law_noise(
     *,
     min_hz: float = 0.002,
     max_hz: float | None = None,
+    n_series: int | None = None,
 ) -> np.ndarray:
     """Unit-variance noise with power spectral density ∝ 1/f^exponent.
 
@@ -79,10 +91,12 @@ def power_law_noise(
     max_hz : float, optional
         Corner frequency above which the spectrum falls off steeply (f^-6 beyond
         the power law), in Hz; None keeps the power law up to Nyquist.
+    n_series : int, optional
+        Number of independent series to draw at once.
 
     Returns
     -------
-    ndarray, shape (n_times,)
+    ndarray, shape (n_times,), or (n_times, n_series) when ``n_series`` is given
 
     Notes
     -----
@@ -96,7 +110,7 @@ def power_law_noise(
             psd = psd / (1.0 + (freqs / max_hz) ** 6)
         return np.sqrt(psd)
 
-    return shaped_noise(n_times, sfreq_hz, amplitude, rng)
+    return shaped_noise(n_times, sfreq_hz, amplitude, rng, n_series=n_series)
 
 
 def band_noise(

@@ -66,11 +66,8 @@ def count_rates(
     ndarray, shape (n_times, n_channels)
     """
     mean_hz = np.asarray(mean_hz, dtype=float)
-    wander = np.column_stack(
-        [
-            power_law_noise(n_times, sfreq_hz, 2.0, rng, min_hz=0.002, max_hz=0.05)
-            for _ in range(mean_hz.size)
-        ]
+    wander = power_law_noise(
+        n_times, sfreq_hz, 2.0, rng, min_hz=0.002, max_hz=0.05, n_series=mean_hz.size
     )
     return mean_hz * np.clip(1.0 + wander_cv * wander, 0.5, 1.5)
 
@@ -217,12 +214,7 @@ def accelerometer(
     sfreq = 1.0 / (times_s[1] - times_s[0])
     gravity = np.array([rng.uniform(-0.2, 0.2), rng.uniform(-0.2, 0.2), 1.0])
     gravity = np.tile(gravity / np.linalg.norm(gravity), (n, 1))
-    shake = np.column_stack(
-        [
-            power_law_noise(n, sfreq, 0.0, rng, min_hz=0.5, max_hz=min(4.0, sfreq / 3))
-            for _ in range(3)
-        ]
-    )
+    shake = power_law_noise(n, sfreq, 0.0, rng, min_hz=0.5, max_hz=min(4.0, sfreq / 3), n_series=3)
     envelope = np.zeros((n, 3))
     for event in events:
         since = times_s - event["onset_s"]

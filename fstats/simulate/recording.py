@@ -202,13 +202,16 @@ def simulate_recording(
             evoked_response(times, timing, gains_b, kernel, event_gains=event_gains),
         ]
     )
-    scalp_task = evoked_response(
+    # task-locked systemic arousal: scalp flow change and heart-rate increase share one shape
+    arousal = evoked_response(
         times,
         timing,
-        {c: scalp_task_pct / 100.0 for c in task_conditions},
+        {c: 1.0 for c in task_conditions} if has_scalp_task else {},
         scalp_kernel(fs, peak, s.scalp_task_delay_s),
         event_gains=np.clip(1.0 + 0.2 * rng.standard_normal(len(timing)), 0.0, None),
     )
+    scalp_task = scalp_task_pct / 100.0 * arousal
+    task_heart_rate = float(s.task_heart_rate_bpm) if has_scalp_task else 0.0
 
     # --- systemic signals, generated with a lead-in so the brain can lag the scalp --------
     pad = int(math.ceil(max(s.systemic_lag_range_s[1], systemic_lag, 0.1) * fs)) + 2
@@ -227,6 +230,9 @@ def simulate_recording(
         rng,
         resp_phase=lambda t: np.interp(t + t_ext[0], t_ext, resp_phase),
         mayer=lambda t: on_ext(mayer)(t + t_ext[0]),
+        rate_change=lambda t: (
+            task_heart_rate / heart_rate * np.interp(t + t_ext[0], times, arousal, left=0.0)
+        ),
     )
     resp_at_beats = np.sin(np.interp(beats, t_ext, resp_phase))
     pulse = pulse_train(t_ext, beats, rng, amplitude_modulation=0.1 * resp_at_beats)
@@ -260,20 +266,17 @@ def simulate_recording(
     rho = s.slow_shared_fraction
     slow_amp = s.slow_amplitude_pct / 100.0
 
-    def slow_series():
-        return power_law_noise(n, fs, s.slow_exponent, rng, min_hz=s.slow_min_hz, max_hz=0.5)
-
-    shared = slow_series()
+    shared, local_a, local_b = power_law_noise(
+        n, fs, s.slow_exponent, rng, min_hz=s.slow_min_hz, max_hz=0.5, n_series=3
+    ).T
     slow = slow_amp * np.column_stack(
-        [math.sqrt(rho) * shared + math.sqrt(1.0 - rho) * slow_series() for _ in _LONG]
+        [math.sqrt(rho) * shared + math.sqrt(1.0 - rho) * local for local in (local_a, local_b)]
     )
     brain = 1.0 + sys_scale * brain_systemic[:, None] + slow + task
     scalp_local = (
         sys_scale
         * a["scalp_local"]
-        * np.column_stack(
-            [power_law_noise(n, fs, 1.0, rng, min_hz=0.003, max_hz=0.5) for _ in _LONG]
-        )
+        * power_law_noise(n, fs, 1.0, rng, min_hz=0.003, max_hz=0.5, n_series=2)
     )
     long_rel = w_long * brain + (1.0 - w_long) * (scalp[:, None] + scalp_local)
     brain_under_short = 1.0 + sys_scale * brain_systemic + slow_amp * math.sqrt(rho) * shared
@@ -298,6 +301,9 @@ def simulate_recording(
     rates = count_rates(n, fs, mean_rates, rng) * rate_factor
     noise_std = relative_noise_std(rates, fs, s.noise_pct, s.count_rate_exponent)
     bfi = bfi_true * (1.0 + noise_std * rng.standard_normal(bfi_true.shape))
+    # sporadic wild samples, as from a failed g2 fit (log-normal factor, sd 0.5 in log)
+    wild = rng.random(bfi.shape) < s.outlier_fraction
+    bfi = np.where(wild, bfi * np.exp(0.5 * rng.standard_normal(bfi.shape)), bfi)
     bfi = np.maximum(bfi, 0.02 * baseline)
 
     # --- optional g2 curves and auxiliary signals ----------------------------------------
@@ -365,6 +371,7 @@ def simulate_recording(
             name: float((1.0 - w) * scalp_task_pct) for name, w in zip(_LONG, w_long, strict=True)
         },
         "scalp_task_delay_s": float(s.scalp_task_delay_s),
+        "task_heart_rate_bpm": task_heart_rate,
         "response_peak_s": peak,
         "block_gains": [float(g) for g in event_gains],
         "heart_rate_bpm": float(60.0 * (in_beats.size - 1) / (in_beats[-1] - in_beats[0]))
@@ -391,6 +398,9 @@ def simulate_recording(
         "beta": {name: float(b) for name, b in zip(names, beta, strict=True)},
         "n_beats": int(in_beats.size),
         "motion_events": motion_events,
+        "n_outlier_samples": {
+            name: int(v) for name, v in zip(names, wild.sum(axis=0), strict=True)
+        },
     }
     components = {
         "pulse": now(pulse),
@@ -401,6 +411,7 @@ def simulate_recording(
         "slow": slow,
         "task": task,
         "scalp_task": scalp_task,
+        "arousal": arousal,
         "relative": relative,
         "motion": flow_factor,
         "bfi_true": bfi_true,

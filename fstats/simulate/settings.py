@@ -108,6 +108,9 @@ class SimulationSettings:
         Probability that a recording has the task-locked scalp change.
     scalp_task_delay_s : float, default=2.0
         Extra delay of the scalp response relative to the cerebral one, in s.
+    task_heart_rate_bpm : float, default=3.0
+        Task-locked heart-rate increase (bpm, at the plateau) in recordings with the
+        scalp change: mental arithmetic raises arousal (recalled from memory).
 
     Physiology
     ----------
@@ -153,6 +156,9 @@ class SimulationSettings:
         20 Hz; scales as ``(20 kcps / count rate)**count_rate_exponent * sqrt(sfreq/20)``.
         0 switches measurement noise off.
     count_rate_exponent : float, default=1.0
+    outlier_fraction : float, default=0.001
+        Fraction of samples per channel replaced by a wild value (BFi × a log-normal
+        factor, log-sd 0.5), as from a failed g2 fit.
     count_rate_short_kcps, count_rate_long_kcps : (float, float), default=(50, 200), (10, 40)
         Ranges of the mean photon count rate, kilocounts per second.
     with_motion : bool, default=True
@@ -192,6 +198,7 @@ class SimulationSettings:
     scalp_task_pct: float = 5.0
     scalp_task_fraction: float = 0.5
     scalp_task_delay_s: float = 2.0
+    task_heart_rate_bpm: float = 3.0
 
     heart_rate_bpm: float | None = None
     heart_rate_range_bpm: tuple[float, float] = (55.0, 90.0)
@@ -215,6 +222,7 @@ class SimulationSettings:
 
     noise_pct: float = 4.0
     count_rate_exponent: float = 1.0
+    outlier_fraction: float = 0.001
     count_rate_short_kcps: tuple[float, float] = (50.0, 200.0)
     count_rate_long_kcps: tuple[float, float] = (10.0, 40.0)
     with_motion: bool = True
@@ -269,7 +277,13 @@ class SimulationSettings:
             value = getattr(self, name)
             if not (math.isfinite(value) and value >= 0):
                 raise InputError("SimulationSettings", f"field {name!r}", "a number >= 0", value)
-        for name in ("scalp_task_fraction", "short_brain_fraction", "slow_shared_fraction"):
+        fractions = (
+            "scalp_task_fraction",
+            "short_brain_fraction",
+            "slow_shared_fraction",
+            "outlier_fraction",
+        )
+        for name in fractions:
             value = getattr(self, name)
             if not 0.0 <= value <= 1.0:
                 raise InputError(

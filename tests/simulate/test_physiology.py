@@ -44,7 +44,8 @@ def test_flow_pulse_has_systolic_peak_notch_and_dicrotic_wave():
 
 
 def test_pulse_train_spectrum_peaks_at_heart_rate():
-    """Source: common practice - a periodic pulse train's Welch PSD peaks at its fundamental."""
+    """Source: common practice - a pulse train's Welch PSD peaks at its mean beat rate
+    (within 0.04 Hz: the slow heart-rate wander moves the spectral mode a little)."""
     rng = np.random.default_rng(1)
     times = np.arange(0, 600, 0.05)
     beats = beat_times(600.0, 66.0, rng)
@@ -52,7 +53,7 @@ def test_pulse_train_spectrum_peaks_at_heart_rate():
     freqs, psd = signal.welch(wave, fs=20.0, nperseg=4096)
     band = (freqs > 0.6) & (freqs < 3.5)
     realised = 1.0 / np.mean(np.diff(beats))
-    assert freqs[band][np.argmax(psd[band])] == pytest.approx(realised, abs=0.02)
+    assert freqs[band][np.argmax(psd[band])] == pytest.approx(realised, abs=0.04)
     assert abs(wave.mean()) < 1e-12
 
 

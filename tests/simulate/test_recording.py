@@ -16,6 +16,7 @@ QUIET = dict(  # everything but the task switched off
     with_motion=False,
     scalp_task_fraction=0.0,
     block_amplitude_cv=0.0,
+    outlier_fraction=0.0,
 )
 
 
@@ -256,3 +257,20 @@ def test_settings_refuse_bad_values():
         SimulationSettings(sfreq_hz=2.0)
     with pytest.raises(InputError, match="scalp_task_fraction"):
         SimulationSettings(scalp_task_fraction=1.5)
+
+
+def test_task_locked_heart_rate_increase():
+    """Source: recalled from memory - mental arithmetic raises heart rate by a few bpm; the
+    simulator's beat-to-beat rate is higher late in the task blocks than in the rest before,
+    by about task_heart_rate_bpm (within 2 bpm, averaged over blocks)."""
+    settings = SimulationSettings(
+        duration_s=1800.0, scalp_task_fraction=1.0, task_heart_rate_bpm=6.0, with_aux=False
+    )
+    sim = simulate_recording(settings, np.random.default_rng(6))
+    beats = sim.components["beats_s"]
+    rate = 60.0 / np.diff(beats)
+    mid = beats[:-1] + np.diff(beats) / 2
+    onsets = sim.recording.events.select("subtract").onsets_s
+    change = _block_change(mid, rate, onsets, window=(25.0, 40.0), before=(-15.0, 0.0))
+    assert sim.truth["task_heart_rate_bpm"] == 6.0
+    assert change == pytest.approx(6.0, abs=2.0)
