@@ -129,7 +129,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 def _demo(args: argparse.Namespace) -> int:
     from fstats.cli._run import _progress, _summary
-    from fstats.simulate import simulate_cohort
+    from fstats.simulate.cohort import simulate_cohort
     from fstats.study import run_study
 
     out_dir: Path = args.out
