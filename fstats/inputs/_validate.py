@@ -207,6 +207,8 @@ def regular_grid(
             f"(step {step:.6g} s)",
             f"a time {deviation[worst]:.0%} of a step off the grid",
         )
+    if n_grid == times.size and deviation[worst] <= EXACT_STEP_TOLERANCE:
+        return times, values, rows  # already regular: nothing to copy
     out = np.full((n_grid, values.shape[1]), np.nan)
     out_rows = np.full(n_grid, -1, dtype=int)
     out_rows[index] = rows
