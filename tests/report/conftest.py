@@ -235,7 +235,8 @@ def _chromium_path():
 
 @pytest.fixture(scope="session")
 def chromium(tmp_path_factory):
-    """Run headless Chromium on a file: returns ``run(page, *extra_flags) -> (stdout, stderr)``.
+    """Run headless Chromium on a file: ``run(page, *extra_flags)`` gives ``.dom`` (stdout),
+    ``.log`` (stderr) and ``.problems`` (console-error lines).
 
     Skips (with the reason) where Chromium is not installed.
     """
@@ -258,9 +259,18 @@ def chromium(tmp_path_factory):
             Path(page).resolve().as_uri(),
         ]
         done = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout_s, check=False)
-        return done.stdout, done.stderr
+        return SimpleNamespace(
+            dom=done.stdout, log=done.stderr, problems=console_problems(done.stderr)
+        )
 
     return run
+
+
+@pytest.fixture(scope="session")
+def artifacts_dir():
+    """tests/artifacts/ (git-ignored), created on demand."""
+    ARTIFACTS.mkdir(parents=True, exist_ok=True)
+    return ARTIFACTS
 
 
 def console_problems(stderr: str) -> list[str]:
