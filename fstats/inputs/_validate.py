@@ -15,6 +15,7 @@ jitter up to ``JITTER_TOLERANCE`` of the step  values linearly interpolated onto
                                                regular grid ``t0 + k * step``
 a step of a whole number of steps (+-5 %)      missing samples inserted as NaN
 any other step                                 refused (line named)
+median step > 1 / ``MIN_SAMPLING_RATE_HZ``     refused (time column not in seconds)
 NaN run <= ``MAX_INTERPOLATED_GAP_S``          linearly interpolated (interior runs only)
 longer NaN run, or NaN at the edges            kept as NaN; runs listed in
                                                ``provenance["missing_samples"]``
@@ -42,6 +43,7 @@ __all__ = [
     "JITTER_TOLERANCE",
     "MAX_INTERPOLATED_GAP_S",
     "MAX_MISSING_FRACTION",
+    "MIN_SAMPLING_RATE_HZ",
     "PLAUSIBLE_MEDIAN",
     "note_repair",
     "clean_times",
@@ -60,6 +62,8 @@ JITTER_TOLERANCE: float = 0.05
 MAX_INTERPOLATED_GAP_S: float = 0.5
 #: A channel with a larger fraction of missing samples is refused.
 MAX_MISSING_FRACTION: float = 0.5
+#: Slower sampling is refused as a time column in the wrong unit (DCS runs at 1-100 Hz).
+MIN_SAMPLING_RATE_HZ: float = 0.2
 #: Plausible range of a channel's median flow, per flow unit.  Adult brain BFi is about
 #: 1e-8 cm²/s (0.5-3e-8; muscle and scalp lower); 1e-6 catches BFi written in mm²/s
 #: (x100) and BFi scaled by 1e8; relative flow has baseline 1.
@@ -180,6 +184,14 @@ def regular_grid(
         raise InputError(path, f"column {field!r}", "at least 3 samples", int(times.size))
     steps = np.diff(times)
     step = float(np.median(steps))
+    if step > 1.0 / MIN_SAMPLING_RATE_HZ:
+        raise InputError(
+            path,
+            f"column {field!r}",
+            f"times in seconds (a sampling rate of at least {MIN_SAMPLING_RATE_HZ:g} Hz)",
+            f"a median step of {step:.6g}",
+            hint="values look like milliseconds; convert the time column to seconds",
+        )
     ratio = steps / step
     counts = np.rint(ratio)
     bad = np.flatnonzero((counts < 1) | (np.abs(ratio - counts) > JITTER_TOLERANCE))

@@ -102,6 +102,17 @@ def irregular_step(tmp_path, build):
     return path, path, ["line 101, column 'time'", "regular time step"]
 
 
+def time_in_milliseconds(tmp_path, build):
+    path = _tsv(tmp_path, build)
+    lines = _lines(path)
+    for number in range(2, len(lines) + 1):
+        cells = lines[number - 1].split("\t")
+        cells[0] = repr(float(cells[0]) * 1000.0)
+        lines[number - 1] = "\t".join(cells)
+    _put(path, lines)
+    return path, path, ["column 'time'", "milliseconds"]
+
+
 def missing_time_cell(tmp_path, build):
     path = _tsv(tmp_path, build)
     _set_cell(path, 12, 0, "n/a")
@@ -286,6 +297,7 @@ CASES = [
     conflicting_duplicate_time,
     time_going_back,
     irregular_step,
+    time_in_milliseconds,
     missing_time_cell,
     negative_bfi,
     zero_bfi,

@@ -154,3 +154,24 @@ def test_quoted_cells_read_the_same(build, tmp_path):
     back = read_flow_table(path)
     assert_array_equal(back.flow, original.flow)
     assert_array_equal(back.times_s, original.times_s)
+
+
+def test_windows_line_endings_and_byte_order_mark(build, tmp_path):
+    """Source: common practice - spreadsheet exports add CRLF line ends and a UTF-8 BOM."""
+    original = build(13)
+    path = write_flow_table(original, tmp_path / "w_flow.csv")
+    path.write_bytes(b"\xef\xbb\xbf" + path.read_bytes().replace(b"\n", b"\r\n"))
+    back = read_flow_table(path)
+    assert_array_equal(back.flow, original.flow)
+
+
+def test_channel_rows_in_any_order(build, tmp_path):
+    """Source: CONTRACTS section 1 - channels are matched to flow columns by name."""
+    original = build(14)
+    path = write_flow_table(original, tmp_path / "o_flow.tsv")
+    sidecar = tmp_path / "o_channels.tsv"
+    lines = sidecar.read_text().splitlines()
+    sidecar.write_text("\n".join([lines[0], lines[3], lines[1], lines[2]]) + "\n")
+    back = read_flow_table(path)
+    assert back.channel_names == ("scalp", "frontal_a", "frontal_b")
+    assert back.short_channels == ("scalp",)
