@@ -8,12 +8,23 @@ from pathlib import Path
 import h5py
 import numpy as np
 
-from fstats.errors import InputError
+from fstats.errors import InputError, suggest
 from fstats.inputs._validate import clean_times
 from fstats.inputs.events import check_event_times
 from fstats.inputs.recording import AuxSignal, TaskTiming
 
-__all__ = ["numbered", "text", "texts", "dataset", "integer", "read_stims", "read_aux_groups"]
+__all__ = [
+    "numbered",
+    "text",
+    "texts",
+    "dataset",
+    "integer",
+    "unit_factor",
+    "positions",
+    "time_base",
+    "read_stims",
+    "read_aux_groups",
+]
 
 
 def numbered(group: h5py.Group, prefix: str) -> list[str]:
@@ -57,6 +68,38 @@ def integer(path: Path, group: h5py.Group, name: str, default: int | None = None
     if value.size != 1 or not np.isfinite(value[0]) or value[0] != int(value[0]):
         raise InputError(path, f"{group.name}/{name}", "one integer", value.tolist())
     return int(value[0])
+
+
+def unit_factor(path: Path, meta: h5py.Group | None, tag: str, table: dict, default: str) -> float:
+    if meta is None or tag not in meta:
+        return table[default]
+    unit = text(meta[tag][()])
+    if unit not in table:
+        raise InputError(
+            path, f"{meta.name}/{tag}", f"one of {list(table)}", unit, suggest(unit, table)
+        )
+    return table[unit]
+
+
+def positions(path: Path, probe: h5py.Group, kind: str) -> np.ndarray:
+    for name in (f"{kind}Pos3D", f"{kind}Pos2D"):
+        if name in probe:
+            return np.atleast_2d(np.asarray(probe[name][()], dtype=float))
+    raise InputError(path, f"{probe.name}/{kind}Pos3D", f"{kind} positions", "missing")
+
+
+def time_base(path: Path, data: h5py.Group, n_times: int, to_s: float) -> np.ndarray:
+    time = np.asarray(dataset(path, data, "time", "sample times")[()], dtype=float).reshape(-1)
+    if time.size == 2 and n_times != 2:
+        time = time[0] + time[1] * np.arange(n_times)
+    if time.size != n_times:
+        raise InputError(
+            path,
+            f"{data.name}/time",
+            f"{n_times} sample times (one per row of dataTimeSeries)",
+            f"{time.size} values",
+        )
+    return time * to_s
 
 
 def read_stims(path: Path, nirs: h5py.Group, start_s: float, end_s: float) -> TaskTiming | None:

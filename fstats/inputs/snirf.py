@@ -49,10 +49,13 @@ from fstats.inputs._hdf5 import (
     dataset,
     integer,
     numbered,
+    positions,
     read_aux_groups,
     read_stims,
     text,
     texts,
+    time_base,
+    unit_factor,
 )
 from fstats.inputs._naming import recording_stem, stem_entities
 from fstats.inputs._validate import check_flow_values, clean_times, fill_missing, regular_grid
@@ -80,38 +83,6 @@ _TIME_TO_S = {"s": 1.0, "ms": 1e-3, "us": 1e-6}
 _BFI_UNITS = {"cm2/s": ("cm2/s", 1.0), "mm2/s": ("cm2/s", 0.01), "relative": ("relative", 1.0)}
 #: metaDataTags entry (ours) listing the short-separation channels, joined by ";".
 SHORT_CHANNELS_TAG = "fstats_short_channels"
-
-
-def _unit(path: Path, meta: h5py.Group | None, tag: str, table: dict, default: str) -> float:
-    if meta is None or tag not in meta:
-        return table[default]
-    unit = text(meta[tag][()])
-    if unit not in table:
-        raise InputError(
-            path, f"{meta.name}/{tag}", f"one of {list(table)}", unit, suggest(unit, table)
-        )
-    return table[unit]
-
-
-def _positions(path: Path, probe: h5py.Group, kind: str) -> np.ndarray:
-    for name in (f"{kind}Pos3D", f"{kind}Pos2D"):
-        if name in probe:
-            return np.atleast_2d(np.asarray(probe[name][()], dtype=float))
-    raise InputError(path, f"{probe.name}/{kind}Pos3D", f"{kind} positions", "missing")
-
-
-def _time_base(path: Path, data: h5py.Group, n_times: int, to_s: float) -> np.ndarray:
-    time = np.asarray(dataset(path, data, "time", "sample times")[()], dtype=float).reshape(-1)
-    if time.size == 2 and n_times != 2:
-        time = time[0] + time[1] * np.arange(n_times)
-    if time.size != n_times:
-        raise InputError(
-            path,
-            f"{data.name}/time",
-            f"{n_times} sample times (one per row of dataTimeSeries)",
-            f"{time.size} values",
-        )
-    return time * to_s
 
 
 def read_snirf(
@@ -167,20 +138,18 @@ def _read(path: Path, handle: h5py.File, short_threshold_cm: float) -> Recording
         logger.warning("%s: reading /%s only of %d nirs groups", path, groups[0], len(groups))
     nirs = handle[groups[0]]
     meta = nirs.get("metaDataTags")
-    to_cm = _unit(path, meta, "LengthUnit", _LENGTH_TO_CM, "mm")
-    to_s = _unit(path, meta, "TimeUnit", _TIME_TO_S, "s")
+    to_cm = unit_factor(path, meta, "LengthUnit", _LENGTH_TO_CM, "mm")
+    to_s = unit_factor(path, meta, "TimeUnit", _TIME_TO_S, "s")
     blocks = numbered(nirs, "data")
     if not blocks:
         raise InputError(path, f"{nirs.name}/data1", "a data group with dataTimeSeries", "none")
     if "probe" not in nirs:
         raise InputError(path, f"{nirs.name}/probe", "a probe group", "missing")
     probe = nirs["probe"]
-    times, columns, keys, ignored = (
-        None,
-        [],
-        [],
-        [],
-    )  # keys: (kind, channel key, lag index, unit, where)
+    times = None
+    columns: list[np.ndarray] = []  # one series per DCS measurement
+    keys: list[tuple] = []  # (kind, (source, detector, wavelength), dataTypeIndex, unit, where)
+    ignored: list[int] = []  # dataType codes of measurements that are not DCS
     for block in blocks:
         data = nirs[block]
         series = np.asarray(
@@ -193,7 +162,7 @@ def _read(path: Path, handle: h5py.File, short_threshold_cm: float) -> Recording
             raise InputError(
                 path, f"{data.name}/dataTimeSeries", "a 2-D array with data", series.shape
             )
-        block_times = _time_base(path, data, series.shape[0], to_s)
+        block_times = time_base(path, data, series.shape[0], to_s)
         if times is None:
             times = block_times
         elif not np.array_equal(times, block_times):
@@ -248,7 +217,7 @@ def _read(path: Path, handle: h5py.File, short_threshold_cm: float) -> Recording
 
 def _channels(path, probe, meta, keys, to_cm, short_threshold_cm):
     channel_keys = list(dict.fromkeys(k[1] for k in sorted(keys, key=lambda k: k[0] != "BFi")))
-    sources, detectors = _positions(path, probe, "source"), _positions(path, probe, "detector")
+    sources, detectors = positions(path, probe, "source"), positions(path, probe, "detector")
     wavelengths = (
         np.asarray(probe["wavelengths"][()], dtype=float).reshape(-1)
         if "wavelengths" in probe
@@ -311,6 +280,13 @@ def _assemble(path, nirs, probe, meta, times, columns, keys, to_cm, to_s, short_
                 "missing",
             )
         lags = np.asarray(probe["correlationTimeDelays"][()], dtype=float).reshape(-1) * to_s
+        if not (lags.size and np.isfinite(lags).all() and (lags > 0).all()):
+            raise InputError(
+                path,
+                f"{probe.name}/correlationTimeDelays",
+                "lag times > 0",
+                lags.tolist()[:5],
+            )
         g2 = np.full((n_times, n_channels, lags.size), np.nan)
     for column, (kind, key, index, unit, where) in zip(columns, keys, strict=True):
         c = channel_keys.index(key)

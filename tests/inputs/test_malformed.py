@@ -261,6 +261,13 @@ def snirf_g2_without_lags(tmp_path, build):
     return path, path, ["/nirs/probe/correlationTimeDelays", "401"]
 
 
+def snirf_nonpositive_lags(tmp_path, build):
+    path = _snirf(tmp_path, build, g2=True)
+    with h5py.File(path, "r+") as f:
+        f["/nirs/probe/correlationTimeDelays"][0] = 0.0
+    return path, path, ["/nirs/probe/correlationTimeDelays", "lag times > 0"]
+
+
 def snirf_negative_bfi(tmp_path, build):
     path = _snirf(tmp_path, build)
     with h5py.File(path, "r+") as f:
@@ -319,6 +326,7 @@ CASES = [
     snirf_wrong_data_type,
     snirf_missing_time,
     snirf_g2_without_lags,
+    snirf_nonpositive_lags,
     snirf_negative_bfi,
     snirf_stim_after_end,
     snirf_not_hdf5,
