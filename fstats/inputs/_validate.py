@@ -126,7 +126,7 @@ def clean_times(
                     path,
                     f"{where(i + 1)}, column {field!r}",
                     f"one sample per time stamp (a repeat must hold the same values as {where(i)})",
-                    f"time {times[i + 1]!r} s repeated with different values",
+                    f"time {float(times[i + 1])!r} s repeated with different values",
                 )
         keep = np.ones(times.size, dtype=bool)
         keep[same + 1] = False
@@ -134,7 +134,7 @@ def clean_times(
             repairs,
             "duplicate_rows_dropped",
             f"{path}: dropped {same.size} repeated row(s) with a duplicated time stamp "
-            f"(first at {where(same[0] + 1)}, time {times[same[0]]!r} s)",
+            f"(first at {where(same[0] + 1)}, time {float(times[same[0]])!r} s)",
             n_rows=int(same.size),
         )
         times, values, rows = times[keep], values[keep], rows[keep]
@@ -144,7 +144,7 @@ def clean_times(
         raise InputError(
             path,
             f"{where(rows[i])}, column {field!r}",
-            f"times increasing from the previous sample ({times[i - 1]!r} s)",
+            f"times increasing from the previous sample ({float(times[i - 1])!r} s)",
             float(times[i]),
         )
     return times, values, rows
