@@ -74,7 +74,7 @@ def _curve(condition, channel, item, method="") -> dict | None:
     return {
         "condition": str(condition),
         "channel": str(channel),
-        "method": str(field_of(item, "method", "kind", default=method)),
+        "method": str(field_of(item, "source", "method", "kind", default=method)),
         "time_s": np.asarray(times, dtype=float),
         "mean": mean,
         "ci_low": nan if lo is None else np.asarray(lo, dtype=float),
@@ -92,7 +92,7 @@ def _curves_from_frame(frame: pd.DataFrame) -> list[dict]:
         return []
     lo_col = next((c for c in ("ci_low_pct", "ci_low") if c in cols), None)
     hi_col = next((c for c in ("ci_high_pct", "ci_high") if c in cols), None)
-    method_col = next((c for c in ("method", "kind") if c in cols), None)
+    method_col = next((c for c in ("source", "method", "kind") if c in cols), None)
     keys = ["condition", "channel"] + ([method_col] if method_col else [])
     curves = []
     for key, part in frame.groupby(keys, sort=False):

@@ -13,7 +13,7 @@ import numpy as np
 from matplotlib.collections import PolyCollection
 from matplotlib.ticker import FuncFormatter, NullFormatter
 
-from fstats.report.plotdata import envelope_decimate
+from fstats.report.plotdata import envelope_decimate, thin_curve
 from fstats.report.style import channel_style, condition_fill, new_figure, plain_label
 
 __all__ = ["flow_traces_figure", "spectra_figure", "weights_figure", "shade_task_periods"]
@@ -212,14 +212,14 @@ def weights_figure(
         ax.axvspan(start, max(stop, start + 0.5), color=_MOTION_COLOR, alpha=0.18, linewidth=0)
     for i, (name, w) in enumerate(weights.items()):
         style = channel_style(i, False)
-        # Thin with the minimum kept, since down-weighted samples are what matter here.
-        t, v = envelope_decimate(times_s, w, max_points)
-        ax.plot(t, v, linewidth=0.6, label=plain_label(name), **style.line_kwargs())
+        # Bin means: isolated down-weighted samples fade, runs of them (motion) stand out.
+        t, v = thin_curve(times_s, max_points // 2), thin_curve(w, max_points // 2)
+        ax.plot(t, v, linewidth=0.8, label=plain_label(name), **style.line_kwargs())
     ax.axhline(
         threshold, color="#444444", linestyle=":", linewidth=1.0, label=f"weight {threshold}"
     )
     ax.set_ylim(-0.05, 1.1)
     ax.set_xlabel("time (s)")
-    ax.set_ylabel("robust weight (unitless)")
+    ax.set_ylabel("mean robust weight (unitless)")
     ax.legend(fontsize=7, frameon=False, ncols=4, loc="lower right")
     return fig

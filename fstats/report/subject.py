@@ -14,6 +14,7 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from scipy.ndimage import uniform_filter1d
 
 from fstats.report import _access
 from fstats.report.courses import response_curves
@@ -58,6 +59,13 @@ CARDIAC_BAND_HZ = (0.7, 3.0)
 RESPIRATORY_BAND_HZ = (0.1, 0.6)
 
 _WEIGHT_THRESHOLD = 0.5
+#: Variance inflation above this is flagged (common practice: VIF > 10 is serious).
+_VIF_HIGH = 10.0
+#: Robust weights are averaged over this window (s) before looking for motion spans, so
+#: single down-weighted samples (ordinary outliers) do not count as motion.
+_MOTION_WINDOW_S = 1.0
+#: Display names of block-average sources.
+_SOURCE_NAMES = {"model": "model-based, FIR", "epochs": "epoch average", "epoch": "epoch average"}
 _RESULT_COLUMNS = [
     ("channel", "channel", "text"),
     ("separation_cm", "separation (cm)", "num"),
@@ -162,6 +170,7 @@ def _residual_checks(fits: dict, sfreq_hz: float) -> tuple[dict, dict, dict]:
                 "channel": name,
                 "ar_order": None if ar is None else int(np.size(ar)),
                 "r2": _diagnostic(diag, "r2", "r_squared"),
+                "durbin_watson_before": _diagnostic(diag, "durbin_watson_before"),
                 "durbin_watson": dw,
                 "ljung_box_p": lb,
                 "short_share": _diagnostic(diag, "short_share"),
@@ -174,9 +183,11 @@ def _residual_checks(fits: dict, sfreq_hz: float) -> tuple[dict, dict, dict]:
                 ("channel", "channel", "text"),
                 ("ar_order", "AR order", "int"),
                 ("r2", "R²", "num"),
+                ("durbin_watson_before", "Durbin–Watson (raw)", "num"),
                 ("durbin_watson", "Durbin–Watson (whitened)", "num"),
                 ("ljung_box_p", "Ljung–Box p (whitened)", "p"),
                 ("short_share", "short-channel share", "num"),
+                ("downweighted", "down-weighted fraction", "num"),
             ],
         )
         if records
@@ -256,7 +267,9 @@ def _subject_context(recording, design, fit, store: FigureStore, max_points: int
     unit = _unit_label(recording.flow_unit)
     events = recording.events
     spans = task_spans(events.onsets_s, events.durations_s, events.conditions) if events else {}
-    subject = recording.subject or _access.field_of(fit, "subject", default="unknown subject")
+    subject = recording.subject or _access.field_of(
+        fit, "subject", default=store.href_prefix[: -len("_figures")]
+    )
     session = recording.session or _access.field_of(fit, "session")
     label = f"{subject} · {session}" if session else str(subject)
 
@@ -304,8 +317,10 @@ def _subject_context(recording, design, fit, store: FigureStore, max_points: int
         if w is not None and w.shape == times.shape and np.nanmin(w) < 1.0:
             weights[name] = w
     motion = []
+    window = max(1, int(round(_MOTION_WINDOW_S * sfreq)))
     for w in weights.values():
-        motion.extend(low_weight_segments(times, w, _WEIGHT_THRESHOLD, min_duration_s=0.2))
+        smooth = uniform_filter1d(np.nan_to_num(w, nan=1.0), window, mode="nearest")
+        motion.extend(low_weight_segments(times, smooth, _WEIGHT_THRESHOLD, min_duration_s=0.0))
     motion.extend(tuple(s) for s in recording.provenance.get("motion_segments_s", []) or [])
     motion = _merge_spans(motion)
 
@@ -403,7 +418,7 @@ def _subject_context(recording, design, fit, store: FigureStore, max_points: int
             [
                 ("regressor", "regressor", "text"),
                 ("vif", "VIF", "num"),
-                ("flag", "flag (> 5)", "text"),
+                ("flag", f"flag (> {_VIF_HIGH:g})", "text"),
             ],
         )
         if vif_records
@@ -439,7 +454,7 @@ def _subject_context(recording, design, fit, store: FigureStore, max_points: int
     for i, method in enumerate(methods[:2]):
         chosen = [c for c in curves if c["method"] == method]
         key = "responses" if i == 0 else "responses_alt"
-        what = f" ({method})" if method else ""
+        what = f" ({_SOURCE_NAMES.get(method, method)})" if method else ""
         response_figures.append(
             store.add(
                 key,
