@@ -29,11 +29,13 @@ A channel is one (source, detector, wavelength) triple.  Its BFi series is the o
 measurement with ``dataType`` 410 (``dataUnit`` ``cm2/s``, ``mm2/s`` - converted - or
 ``relative``).  Its g2 curve is stored as one measurement per lag: ``dataType`` 401 with
 ``dataTypeIndex`` = ``j`` (1-based) meaning lag ``probe/correlationTimeDelays[j - 1]``;
-the writer orders them channel by channel, lag by lag, after the BFi columns.  Measurements
+the writer orders them channel by channel, lag by lag, after the BFi columns.  Detector
+count rates (photons per second, the detected intensity) are stored as dataType 1
+(continuous-wave amplitude) with ``dataUnit`` ``Hz`` for the same channel, last.  Measurements
 of other data types are ignored with a log message; a file with none of 401/410 is refused.
 A file with g2 but no BFi gives a Recording whose flow is all NaN
-(``provenance["flow_missing"] = True``) for the flow stage to fill.  Count rates are not
-stored.  Time stamps and values pass the checks of :mod:`fstats.inputs._validate`.
+(``provenance["flow_missing"] = True``) for the flow stage to fill.  Time stamps and
+values pass the checks of :mod:`fstats.inputs._validate`.
 """
 
 from __future__ import annotations
@@ -71,6 +73,8 @@ logger = logging.getLogger(__name__)
 
 #: SNIRF dataType codes fstats reads: 401 = DCS g2, 410 = DCS blood-flow index.
 DCS_DATA_TYPES: dict[int, str] = {401: "g2", 410: "BFi"}
+#: dataType 1 (continuous-wave amplitude) with dataUnit "Hz": a DCS detector's count rate.
+_INTENSITY_TYPE = 1
 _OTHER_TYPES = {
     1: "continuous-wave amplitude",
     101: "frequency-domain AC amplitude",
@@ -183,7 +187,7 @@ def _read(path: Path, handle: h5py.File, short_threshold_cm: float) -> Recording
         for column, name in enumerate(lists):
             entry = data[name]
             data_type = integer(path, entry, "dataType")
-            if data_type not in DCS_DATA_TYPES:
+            if data_type not in DCS_DATA_TYPES and data_type != _INTENSITY_TYPE:
                 ignored.append(data_type)
                 continue
             key = tuple(
@@ -193,10 +197,14 @@ def _read(path: Path, handle: h5py.File, short_threshold_cm: float) -> Recording
             index = integer(path, entry, "dataTypeIndex", default=1)
             unit_set = entry.get("dataUnit")
             unit = text(unit_set[()]) if unit_set is not None else ""
+            if data_type == _INTENSITY_TYPE and unit != "Hz":
+                ignored.append(data_type)
+                continue
+            kind = DCS_DATA_TYPES.get(data_type, "count rate")
             columns.append(series[:, column])
-            keys.append((DCS_DATA_TYPES[data_type], key, index, unit, entry.name))
-    if not keys:
-        found = sorted(set(ignored))
+            keys.append((kind, key, index, unit, entry.name))
+    if not any(k[0] in ("BFi", "g2") for k in keys):
+        found = sorted(set(ignored) | {_INTENSITY_TYPE for k in keys})
         names = [_OTHER_TYPES.get(t, str(t)) for t in found]
         raise InputError(
             path,
@@ -216,7 +224,8 @@ def _read(path: Path, handle: h5py.File, short_threshold_cm: float) -> Recording
 
 
 def _channels(path, probe, meta, keys, to_cm, short_threshold_cm):
-    channel_keys = list(dict.fromkeys(k[1] for k in sorted(keys, key=lambda k: k[0] != "BFi")))
+    dcs = sorted((k for k in keys if k[0] != "count rate"), key=lambda k: k[0] != "BFi")
+    channel_keys = list(dict.fromkeys(k[1] for k in dcs))
     sources, detectors = positions(path, probe, "source"), positions(path, probe, "detector")
     wavelengths = (
         np.asarray(probe["wavelengths"][()], dtype=float).reshape(-1)
@@ -288,9 +297,16 @@ def _assemble(path, nirs, probe, meta, times, columns, keys, to_cm, to_s, short_
                 lags.tolist()[:5],
             )
         g2 = np.full((n_times, n_channels, lags.size), np.nan)
+    rate = None
     for column, (kind, key, index, unit, where) in zip(columns, keys, strict=True):
+        if key not in channel_keys:  # a count rate without DCS data for its channel
+            continue
         c = channel_keys.index(key)
-        if kind == "BFi":
+        if kind == "count rate":
+            if rate is None:
+                rate = np.full((n_times, n_channels), np.nan)
+            rate[:, c] = column
+        elif kind == "BFi":
             if unit not in _BFI_UNITS and unit:
                 raise InputError(
                     path,
@@ -338,7 +354,8 @@ def _assemble(path, nirs, probe, meta, times, columns, keys, to_cm, to_s, short_
             where=where,
             where_column=lambda c: f"channel {names[c]!r}",
         )
-    stacked = flow if lags is None else np.column_stack([flow, g2.reshape(n_times, -1)])
+    parts = [flow] + ([] if lags is None else [g2.reshape(n_times, -1)])
+    stacked = np.column_stack(parts + ([] if rate is None else [rate]))
     repairs: list[dict] = []
     new_times, stacked, rows = clean_times(
         times, stacked, path=str(path), where=where, repairs=repairs
@@ -352,11 +369,13 @@ def _assemble(path, nirs, probe, meta, times, columns, keys, to_cm, to_s, short_
         flow, kept = fill_missing(
             new_times, flow, rows, names, path=str(path), where=where, repairs=repairs
         )
+    n_g2 = 0 if lags is None else n_channels * lags.size
     g2_out = (
         None
         if lags is None
-        else stacked[:, n_channels:].reshape(new_times.size, n_channels, lags.size)
+        else stacked[:, n_channels : n_channels + n_g2].reshape(-1, n_channels, lags.size)
     )
+    rate_out = None if rate is None else stacked[:, n_channels + n_g2 :]
     step = float(np.median(np.diff(new_times)))
     events = read_stims(path, nirs, float(new_times[0]), float(new_times[-1] + step))
     subject, session = stem_entities(recording_stem(path))
@@ -374,6 +393,7 @@ def _assemble(path, nirs, probe, meta, times, columns, keys, to_cm, to_s, short_
         aux=read_aux_groups(path, nirs, to_s),
         g2=g2_out,
         lags_s=lags,
+        count_rate_hz=rate_out,
         source=str(path),
         subject=subject,
         session=session,

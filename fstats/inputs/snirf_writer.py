@@ -24,7 +24,8 @@ def write_snirf(recording: Recording, path: str | Path) -> Path:
     (``LengthUnit`` mm) and spread in angle; ``detectorLabels`` hold the channel names.
     The flow is written as dataType 410 (``dataUnit`` = the recording's flow unit), then g2
     (when present) as dataType 401, one measurement per channel and lag with
-    ``dataTypeIndex`` = lag number (1-based) into ``probe/correlationTimeDelays`` (s).
+    ``dataTypeIndex`` = lag number (1-based) into ``probe/correlationTimeDelays`` (s), then
+    count rates (when present) as dataType 1 with ``dataUnit`` ``Hz``.
     Events go to one ``stim`` group per condition, auxiliary signals to ``aux`` groups.
     The file is written under a temporary name, then renamed.
 
@@ -62,6 +63,10 @@ def write_snirf(recording: Recording, path: str | Path) -> Path:
             for lag in range(recording.g2.shape[2]):
                 columns.append(recording.g2[:, i, lag])
                 lists.append((i + 1, wavelength_index(channel), 401, "g2", lag + 1, ""))
+    if recording.count_rate_hz is not None:
+        for i, channel in enumerate(channels):
+            columns.append(recording.count_rate_hz[:, i])
+            lists.append((i + 1, wavelength_index(channel), 1, "", 1, "Hz"))
     angles = 2 * np.pi * np.arange(len(channels)) / max(len(channels), 1)
     radii = np.array([c.separation_cm * 10.0 for c in channels])
     detectors = np.column_stack(
@@ -95,7 +100,8 @@ def write_snirf(recording: Recording, path: str | Path) -> Path:
                     ("dataTypeIndex", index),
                 ):
                     entry.create_dataset(field, data=np.int32(value))
-                _put_text(entry, "dataTypeLabel", label)
+                if label:
+                    _put_text(entry, "dataTypeLabel", label)
                 if unit:
                     _put_text(entry, "dataUnit", unit)
             probe = nirs.create_group("probe")

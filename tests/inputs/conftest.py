@@ -30,8 +30,9 @@ def make_recording(seed: int = 0, *, g2: bool = False, subject: str = "sub-01") 
         "ppg": AuxSignal("ppg", aux_times, rng.standard_normal(600)),
         "resp": AuxSignal("resp", aux_times, rng.standard_normal(600)),
     }
-    curves = lags = None
+    curves = lags = rates = None
     if g2:
+        rates = rng.uniform(2e4, 1e5, size=(N_TIMES, 3))  # photons per second
         lags = np.geomspace(1e-7, 1e-2, 16)
         decay = rng.uniform(5e-6, 5e-5, size=(N_TIMES, 3, 1))
         curves = 1.0 + 0.5 * np.exp(-2.0 * lags / decay)
@@ -43,6 +44,7 @@ def make_recording(seed: int = 0, *, g2: bool = False, subject: str = "sub-01") 
         aux=aux,
         g2=curves,
         lags_s=lags,
+        count_rate_hz=rates,
         subject=subject,
     )
 

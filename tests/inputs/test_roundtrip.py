@@ -82,6 +82,7 @@ def test_snirf_round_trip_with_g2_lags_stims_and_aux(build, tmp_path):
     assert back.g2.shape == (1200, 3, 16)
     assert_array_equal(back.g2, original.g2)
     assert_array_equal(back.lags_s, original.lags_s)
+    assert_array_equal(back.count_rate_hz, original.count_rate_hz)
     assert back.short_channels == ("scalp",)
 
 
@@ -93,11 +94,13 @@ def test_snirf_layout_follows_the_standard(build, tmp_path):
     path = write_snirf(original, tmp_path / "x_dcs.snirf")
     with h5py.File(path, "r") as f:
         assert f["formatVersion"][()].decode() == "1.1"
-        assert f["/nirs/data1/dataTimeSeries"].shape == (1200, 3 + 3 * 16)
+        assert f["/nirs/data1/dataTimeSeries"].shape == (1200, 3 + 3 * 16 + 3)
         assert f["/nirs/data1/time"].shape == (1200,)
         assert int(f["/nirs/data1/measurementList1/dataType"][()]) == 410
         assert int(f["/nirs/data1/measurementList4/dataType"][()]) == 401
         assert int(f["/nirs/data1/measurementList5/dataTypeIndex"][()]) == 2
+        rate = f["/nirs/data1/measurementList52"]  # count rates last: dataType 1, unit Hz
+        assert int(rate["dataType"][()]) == 1 and rate["dataUnit"][()].decode() == "Hz"
         assert f["/nirs/metaDataTags/LengthUnit"][()].decode() == "mm"
         detectors = f["/nirs/probe/detectorPos3D"][()]
         assert np.linalg.norm(detectors, axis=1) == pytest.approx([10.0, 30.0, 30.0])

@@ -62,12 +62,13 @@ def test_g2_only_file_gives_missing_flow(tmp_path, build):
         data.create_dataset("dataTimeSeries", data=series)
         for k in range(1, 4):
             del data[f"measurementList{k}"]
-        for k in range(4, 4 + 48):
+        for k in range(4, 4 + 48 + 3):  # g2 lags, then count rates
             data.move(f"measurementList{k}", f"measurementList{k - 3}")
     back = read_snirf(path)
     assert back.provenance["flow_missing"] is True
     assert np.isnan(back.flow).all()
     assert_array_equal(back.g2, recording.g2)
+    assert_array_equal(back.count_rate_hz, recording.count_rate_hz)
 
 
 def test_foreign_measurements_are_ignored(tmp_path, build):
