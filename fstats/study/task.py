@@ -272,9 +272,15 @@ class _StageClock:
 
 
 def _subject_glm(glm_class: type, design_options: dict, task: SubjectTask):
-    """A ``SubjectGLM`` from the design's fit options overridden by the study's."""
+    """A ``SubjectGLM`` from the design's fit options overridden by the study's.
+
+    Without reports nothing shows the block-averaged time courses, so they are
+    not computed (they cost more than the GLM itself) unless an option asks for them.
+    """
     options = {**design_options, **task.fit_options}
     known = {f.name for f in dataclasses.fields(glm_class)}
+    if not task.reports and "block_averages" in known:
+        options.setdefault("block_averages", False)
     for name in options:
         if name not in known:
             raise InputError(
