@@ -189,3 +189,23 @@ def test_killed_run_resumes_without_recomputing_finished_subjects(tmp_path, coho
     }
     assert len(list(subjects.glob("*/done.json"))) == 4
     assert _check_every_file_parses(tmp_path / "out") >= 4 * 3 + 2
+
+
+def test_regroup_reruns_only_the_group_level(tmp_path, cohort):
+    """Source: common practice - changing the group model must not refit any subject."""
+    from fstats.study import regroup, run_study
+
+    study = _study(tmp_path, cohort)
+    first = run_study(study, workers=2)
+    markers = {p: p.stat().st_mtime_ns for p in (tmp_path / "out").glob("subjects/*/done.json")}
+    assert len(markers) == 4
+    group_table = first.group_files[0]
+    before = pd.read_csv(group_table, sep="\t")
+    study.write_text(study.read_text().replace("method: fdr", "method: bonferroni"))
+    again = regroup(study)
+    assert [s.status for s in again.subjects] == ["reused"] * 4
+    assert {p: p.stat().st_mtime_ns for p in markers} == markers
+    after = pd.read_csv(again.group_files[0], sep="\t")
+    assert after["p"].tolist() == before["p"].tolist()  # same subject results, same tests
+    assert (after["p_adjusted"] >= before["p_adjusted"] - 1e-12).all()  # Bonferroni >= BH
+    assert again.exit_code == 0
