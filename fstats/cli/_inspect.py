@@ -123,6 +123,12 @@ def summarize_recording(recording: Recording) -> str:
     if recording.g2 is not None:
         lags = recording.lags_s
         lines.append(f"  g2: {lags.size} lags, {lags.min():.3g}..{lags.max():.3g} s")
+    if recording.count_rate_hz is not None:
+        rates = ", ".join(
+            f"{name} {np.nanmedian(recording.count_rate_hz[:, i]):.3g}"
+            for i, name in enumerate(recording.channel_names)
+        )
+        lines.append(f"  count rate (median, Hz): {rates}")
     events = recording.events
     if events is None or len(events) == 0:
         lines.append("  events: none")

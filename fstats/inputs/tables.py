@@ -260,7 +260,8 @@ def write_flow_table(recording: Recording, path: str | Path) -> Path:
     Writes ``path`` (``time`` + one column per channel; TSV or CSV by extension),
     ``<stem>_channels.tsv``, and, when present, ``<stem>_events.tsv`` and
     ``<stem>_aux.tsv``.  Numbers are written with full precision so that reading back
-    gives identical arrays.  Raw g2 curves are not written (use :func:`write_snirf`).
+    gives identical arrays.  Raw g2 curves and count rates are not written (use
+    :func:`~fstats.inputs.snirf_writer.write_snirf`).
     Each file is written under a temporary name and then renamed.
 
     Parameters
@@ -278,8 +279,10 @@ def write_flow_table(recording: Recording, path: str | Path) -> Path:
     path = Path(path)
     if path.suffix.lower() not in SEPARATORS:
         raise ValueError(f"flow table must end in .tsv or .csv, got {path.name!r}")
-    if recording.g2 is not None:
-        logger.info("%s: g2 curves are not written to flow tables; use write_snirf", path)
+    if recording.g2 is not None or recording.count_rate_hz is not None:
+        logger.info(
+            "%s: g2 curves and count rates are not written to flow tables; use write_snirf", path
+        )
     write_channels(
         recording.channels, sidecar_path(path, "channels"), flow_unit=recording.flow_unit
     )

@@ -114,3 +114,26 @@ def test_cohort_summary_and_a_refused_recording(tmp_path, capsys):
     assert line.startswith(f"fstats inspect: error: {bad}, line 1 (header)")
     assert "1 of 2 recording(s) refused" in captured.out
     assert "sub-02_task-subtract_dcs.snirf" in captured.out
+
+
+def test_summary_of_a_snirf_file_with_g2(tmp_path, capsys):
+    """Source: SNIRF specification - g2 lags come from probe/correlationTimeDelays."""
+    base = _recording(3)
+    lags = np.geomspace(1e-7, 1e-2, 12)
+    recording = Recording(
+        base.times_s,
+        base.flow,
+        base.channels,
+        events=base.events,
+        g2=1.0 + 0.5 * np.exp(-lags / 1e-5) * np.ones((1500, 3, 1)),
+        lags_s=lags,
+        count_rate_hz=np.full((1500, 3), 5e4),
+        subject="sub-04",
+    )
+    path = write_snirf(recording, tmp_path / "sub-04_task-subtract_run-3_dcs.snirf")
+    assert main(["inspect", str(path), "--short-threshold-cm", "1.3"]) == 0
+    out = capsys.readouterr().out
+    assert "participant sub-04, session run-3" in out
+    assert "g2: 12 lags, 1e-07..0.01 s" in out
+    assert "count rate (median, Hz): scalp 5e+04" in out
+    assert "aux: none" in out
