@@ -108,3 +108,20 @@ def test_inputs_are_not_modified():
     pool_random_effects(y, v, method="reml")
     assert_allclose(y, Y)
     assert_allclose(v, V)
+
+
+def test_meta_regression_matches_statsmodels_wls():
+    """Source: statsmodels WLS with weights 1/(v + tau2): same coefficients; its scaled
+    covariance is the Knapp-Hartung covariance (scale = weighted RSS / (k - p))."""
+    import statsmodels.api as sm
+
+    rng = np.random.default_rng(9)
+    k = 16
+    x = np.column_stack([np.ones(k), np.repeat([1.0, 0.0], k // 2)])
+    v = rng.uniform(1, 6, size=k)
+    y = x @ np.array([10.0, -4.0]) + rng.normal(0, np.sqrt(v + 3.0))
+    fit = pool_random_effects(y, v, x, method="reml", knapp_hartung=True)
+    ref = sm.WLS(y, x, weights=1.0 / (v + fit.tau2)).fit()
+    assert_allclose(fit.coef, ref.params, rtol=1e-12)
+    assert_allclose(fit.cov, ref.cov_params(), rtol=1e-10)
+    assert_allclose(fit.test(1)["p"], ref.pvalues[1], rtol=1e-10)
