@@ -380,7 +380,8 @@ def _assemble(path, nirs, probe, meta, times, columns, keys, to_cm, to_s, short_
     events = read_stims(path, nirs, float(new_times[0]), float(new_times[-1] + step))
     subject, session = stem_entities(recording_stem(path))
     if subject is None and meta is not None and "SubjectID" in meta:
-        subject = text(meta["SubjectID"][()]) or None
+        tag = text(meta["SubjectID"][()]).strip()
+        subject = tag if tag not in ("", "n/a") else None
     provenance = {"repairs": repairs, "missing_samples": kept, "files": {"snirf": str(path)}}
     if not has_flow.any():
         provenance["flow_missing"] = True

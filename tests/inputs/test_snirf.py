@@ -103,3 +103,14 @@ def test_names_without_detector_labels(tmp_path, build):
     assert back.short_channels == ("S1-D1",)
     with pytest.raises(KeyError):
         back.channel_index("scalp")
+
+
+def test_subject_from_file_name_or_metadata(tmp_path, build):
+    """Source: SNIRF specification - metaDataTags/SubjectID names the participant."""
+    recording = build(2, subject="sub-05")
+    plain = write_snirf(recording, tmp_path / "recording.snirf")
+    assert read_snirf(plain).subject == "sub-05"
+    anonymous = build(2, subject=None)
+    assert read_snirf(write_snirf(anonymous, tmp_path / "other.snirf")).subject is None
+    named = write_snirf(anonymous, tmp_path / "sub-09_task-cue_dcs.snirf")
+    assert read_snirf(named).subject == "sub-09"
