@@ -104,12 +104,21 @@ def _cohort(n_subjects: int, duration_s: float, sfreq_hz: float, seed: int) -> P
     return folder
 
 
-def _study_file(folder: Path, cohort: Path, name: str, reports: bool) -> Path:
+def _study_file(folder: Path, cohort: Path, name: str, reports: bool, first: int = 0) -> Path:
+    """A study file over the whole cohort, or over its ``first`` recordings only."""
+    if first:
+        from fstats.inputs import find_recordings
+
+        entries = find_recordings(cohort)[:first]
+        listed = "".join(f"  - path: {e.path}\n" for e in entries)
+        source = f"recordings:\n{listed}participants: {cohort / 'participants.tsv'}\n"
+    else:
+        source = f"cohort: {cohort}\n"
     path = folder / f"{name}.yaml"
     path.write_text(
-        textwrap.dedent(f"""\
-            title: benchmark {name}
-            cohort: {cohort}
+        f"title: benchmark {name}\n"
+        + source
+        + textwrap.dedent(f"""\
             design: {DESIGN}
             channels: {{short: scalp}}
             group: {{kind: two-sample, options: {{groups: [older, younger]}}}}
@@ -184,6 +193,12 @@ def main() -> None:
     parser.add_argument("--seed", type=int, default=7)
     parser.add_argument("--reference-subjects", type=int, default=5)
     parser.add_argument("--skip-reports", action="store_true", help="statistics-only runs")
+    parser.add_argument(
+        "--report-subjects",
+        type=int,
+        default=0,
+        help="run the with-pages configuration on the first N subjects only (0 = all)",
+    )
     args = parser.parse_args()
 
     RESULTS.mkdir(parents=True, exist_ok=True)
@@ -191,7 +206,8 @@ def main() -> None:
     work = RESULTS / "study_bench"
     work.mkdir(exist_ok=True)
     stats = _study_file(work, cohort, "stats", reports=False)
-    pages = _study_file(work, cohort, "pages", reports=True)
+    pages = _study_file(work, cohort, "pages", reports=True, first=args.report_subjects)
+    n_pages = args.report_subjects or args.subjects
 
     runs = {
         "stats, 1 worker": _run(stats, 1, reports=False),
@@ -199,7 +215,7 @@ def main() -> None:
         "stats, 2 workers, all reused": _run(stats, 2, reports=False, force=False),
     }
     if not args.skip_reports:
-        runs["stats + pages, 2 workers"] = _run(pages, 2, reports=True)
+        runs[f"stats + pages, 2 workers ({n_pages} subj)"] = _run(pages, 2, reports=True)
     reference_s = _plain_loop(cohort, args.reference_subjects)
 
     print(
@@ -221,10 +237,12 @@ def main() -> None:
     print("\nper-subject step medians (s), 1-worker statistics run:")
     for step, seconds in one["step_median_s"].items():
         print(f"  {step:8} {seconds:7.3f}   total {one['step_total_s'][step]:7.1f} s")
-    if "stats + pages, 2 workers" in runs:
-        print("per-subject step medians (s), run with pages:")
-        for step, seconds in runs["stats + pages, 2 workers"]["step_median_s"].items():
-            print(f"  {step:8} {seconds:7.3f}")
+    for name, run in runs.items():
+        if "pages" in name:
+            print(f"per-subject step medians (s), {name}:")
+            for step, seconds in run["step_median_s"].items():
+                print(f"  {step:8} {seconds:7.3f}")
+            print(f"  per subject {run['run_s'] / n_pages:.2f} s of run time with 2 workers")
     print(
         f"cohort level (group model, cohort page) of each run: "
         f"{ {k: r['timings'] for k, r in runs.items()} }"
