@@ -177,7 +177,7 @@ def separator_for(path: str | Path) -> str:
     return SEPARATORS[suffix]
 
 
-def read_delimited(path: str | Path, *, what: str) -> Table:
+def read_delimited(path: str | Path, *, what: str, allow_empty: bool = False) -> Table:
     """Split a TSV or CSV file into header and cells, checking its shape.
 
     Parameters
@@ -187,12 +187,15 @@ def read_delimited(path: str | Path, *, what: str) -> Table:
         checked against the header line.
     what : str
         What the file should hold, for error messages (``"a flow table"``).
+    allow_empty : bool, default=False
+        Accept a header without data rows.
 
     Raises
     ------
     InputError
         Missing or empty file, a header split by a different separator, blank or
-        duplicated column names, a row with the wrong number of cells, or no data rows.
+        duplicated column names, a row with the wrong number of cells, or no data rows
+        (unless ``allow_empty``).
     """
     path = Path(path)
     sep = separator_for(path)
@@ -233,7 +236,7 @@ def read_delimited(path: str | Path, *, what: str) -> Table:
                 f"{len(cells)} cells",
             )
         rows.append([cell.strip() for cell in cells])
-    if not rows:
+    if not rows and not allow_empty:
         raise InputError(path, "line 2", f"data rows of {what} below the header", "no data rows")
     lines = np.array([n for n, _ in numbered[1:]], dtype=int)
     return Table(path=path, header=header, rows=rows, lines=lines)

@@ -6,6 +6,7 @@ required, ``trial_type`` names the condition and is required by fstats, and an o
 modulator (``n/a`` = 1.0).  Onsets are in seconds on the recording's time base (``time``
 column of the flow table, which usually starts at 0).  Other columns are ignored.
 
+A file holding only the header gives no events (with a logged warning).
 Refused: a missing column, non-numeric cells, a negative or missing duration, an empty
 ``trial_type``, and, when the recording's extent is known, an event that starts at or after
 the end of the recording.  An event starting before the recording or running past its end
@@ -128,7 +129,9 @@ def read_events(
         Naming the line and column of the first bad cell.
     """
     path = Path(path)
-    table = read_delimited(path, what="task events")
+    table = read_delimited(path, what="task events", allow_empty=True)
+    if not table.rows:
+        logger.warning("%s: no events (header only)", path)
     require_columns(table, ("onset", "duration", "trial_type"), what="an events table")
     amplitude_columns = [name for name in AMPLITUDE_COLUMNS if name in table.header]
     if len(amplitude_columns) > 1:

@@ -72,3 +72,9 @@ def test_bad_cells_name_their_line(tmp_path, text, where):
     """Source: common practice - an error names the line and column of the bad cell."""
     with pytest.raises(InputError, match=where.replace("(", r"\(").replace(")", r"\)")):
         read_events(_write(tmp_path, text))
+
+
+def test_header_only_gives_no_events(tmp_path):
+    """Source: BIDS specification - an events file may list no events (e.g. rest)."""
+    events = read_events(_write(tmp_path, "onset\tduration\ttrial_type\n"))
+    assert len(events) == 0 and events.conditions == ()
