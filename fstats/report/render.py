@@ -100,9 +100,13 @@ def format_number(value, digits: int = 3) -> str:
         return str(value)
     if not math.isfinite(x):
         return "–"
-    if x != 0 and (abs(x) >= 1e5 or abs(x) < 1e-3):
+    if x == 0:
+        return "0"
+    if abs(x) >= 1e6 or abs(x) < 1e-3:
         return f"{x:.{max(digits - 1, 0)}e}"
-    return f"{x:.{digits}g}" if abs(x) >= 1 else f"{x:.{digits}f}".rstrip("0").rstrip(".") or "0"
+    if abs(x) >= 10**digits:
+        return f"{x:.0f}"
+    return f"{x:.{digits}g}"
 
 
 def format_p(value) -> str:

@@ -321,7 +321,7 @@ def _subject_context(recording, design, fit, store: FigureStore, max_points: int
     for w in weights.values():
         smooth = uniform_filter1d(np.nan_to_num(w, nan=1.0), window, mode="nearest")
         motion.extend(low_weight_segments(times, smooth, _WEIGHT_THRESHOLD, min_duration_s=0.0))
-    motion.extend(tuple(s) for s in recording.provenance.get("motion_segments_s", []) or [])
+    motion.extend(_flagged_motion_spans(recording))
     motion = _merge_spans(motion)
 
     # --- signal check -------------------------------------------------------
@@ -494,6 +494,23 @@ def _subject_context(recording, design, fit, store: FigureStore, max_points: int
         "ci_label": "95 %",
         "residual_table": residual_table,
     }
+
+
+def _flagged_motion_spans(recording) -> list[tuple[float, float]]:
+    """Spans the flow stage marked as motion (``provenance["flow"]["masks"]["motion"]``)."""
+    flow_prov = (
+        recording.provenance.get("flow", {}) if isinstance(recording.provenance, dict) else {}
+    )
+    masks = flow_prov.get("masks", {}) if isinstance(flow_prov, dict) else {}
+    mask = masks.get("motion") if isinstance(masks, dict) else None
+    if mask is None:
+        return []
+    mask = np.asarray(mask, dtype=bool)
+    if mask.ndim == 2:
+        mask = mask.any(axis=1)
+    if mask.shape != recording.times_s.shape:
+        return []
+    return low_weight_segments(recording.times_s, (~mask).astype(float), 0.5)
 
 
 def _merge_spans(spans) -> list[tuple[float, float]]:
