@@ -246,12 +246,16 @@ def write_aux(aux: dict[str, AuxSignal], path: str | Path) -> Path:
     ValueError
         When the signals have different sample times (write SNIRF instead).
     """
+    times = _shared_aux_times(aux)
+    return _write_table(Path(path), times, {s.name: s.values for s in aux.values()})
+
+
+def _shared_aux_times(aux: dict[str, AuxSignal]) -> np.ndarray:
     signals = list(aux.values())
-    times = signals[0].times_s
     for signal in signals[1:]:
-        if not np.array_equal(signal.times_s, times):
+        if not np.array_equal(signal.times_s, signals[0].times_s):
             raise ValueError("auxiliary signals have different time bases; write SNIRF instead")
-    return _write_table(Path(path), times, {s.name: s.values for s in signals})
+    return signals[0].times_s
 
 
 def write_flow_table(recording: Recording, path: str | Path) -> Path:
@@ -279,6 +283,8 @@ def write_flow_table(recording: Recording, path: str | Path) -> Path:
     path = Path(path)
     if path.suffix.lower() not in SEPARATORS:
         raise ValueError(f"flow table must end in .tsv or .csv, got {path.name!r}")
+    if recording.aux:
+        _shared_aux_times(recording.aux)  # refuse before writing anything
     if recording.g2 is not None or recording.count_rate_hz is not None:
         logger.info(
             "%s: g2 curves and count rates are not written to flow tables; use write_snirf", path

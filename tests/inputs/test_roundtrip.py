@@ -178,3 +178,22 @@ def test_channel_rows_in_any_order(build, tmp_path):
     back = read_flow_table(path)
     assert back.channel_names == ("scalp", "frontal_a", "frontal_b")
     assert back.short_channels == ("scalp",)
+
+
+def test_unwritable_aux_leaves_no_files(build, tmp_path):
+    """Source: common practice - a failed write leaves nothing half-written behind."""
+    import dataclasses
+
+    from fstats.inputs import AuxSignal
+
+    original = build(15)
+    aux = dict(original.aux)
+    aux["accel_x"] = AuxSignal("accel_x", np.arange(50) / 5.0, np.zeros(50))
+    broken = dataclasses.replace(original, aux=aux)
+    with pytest.raises(ValueError, match="different time bases"):
+        write_flow_table(broken, tmp_path / "b_flow.tsv")
+    assert list(tmp_path.iterdir()) == []
+    write_snirf(broken, tmp_path / "b_dcs.snirf")  # SNIRF keeps one time base per signal
+    back = read_snirf(tmp_path / "b_dcs.snirf")
+    assert_array_equal(back.aux["accel_x"].times_s, np.arange(50) / 5.0)
+    assert [p.name for p in tmp_path.iterdir()] == ["b_dcs.snirf"]
