@@ -32,6 +32,9 @@ WEIGHTINGS: tuple[str, ...] = ("uniform", "noise-model")
 BETA_MAX: float = 1.5
 _BETA_MIN = 1e-4
 
+_EXP_FLOOR = -300.0  # exponents are clipped here: e^-300 ~ 5e-131, never subnormal
+_GRID_STEP = 0.1  # spacing of the starting-value grid in log BFi (10 %)
+
 _GEOM_KEYS = ("r1", "r2", "z0", "z_image", "k_static_sq", "flow_coef")
 
 
@@ -104,6 +107,11 @@ def decay_product_cm2(level: float, geom: dict, observable: str) -> np.ndarray:
     log space (60 halvings, relative precision ~1e-16 of the bracket 1e-22..1e-2 cm²).
     """
     shape = np.broadcast_shapes(*(np.shape(geom[k]) for k in _GEOM_KEYS))
+    table = np.stack([np.broadcast_to(geom[k], shape).ravel() for k in _GEOM_KEYS], axis=1)
+    unique, inverse = np.unique(table, axis=0, return_inverse=True)
+    if unique.shape[0] < table.shape[0]:  # usually one geometry per channel
+        found = decay_product_cm2(level, dict(zip(_GEOM_KEYS, unique.T, strict=True)), observable)
+        return found[inverse.ravel()].reshape(shape)
     geom = {k: np.broadcast_to(geom[k], shape) for k in _GEOM_KEYS}
     lo = np.full(shape, np.log(1e-22))
     hi = np.full(shape, np.log(1e-2))
@@ -121,31 +129,50 @@ def decay_product_cm2(level: float, geom: dict, observable: str) -> np.ndarray:
 
 
 def _g1_squared(u, lags, geom, observable):
-    """g1² and its derivative with respect to log-BFi ``u`` (shape (n, 1)), per lag."""
-    bfi_tau = np.exp(u) * lags
-    k_static_sq, flow_coef = geom["k_static_sq"], geom["flow_coef"]
-    k = np.sqrt(k_static_sq + flow_coef * bfi_tau)
-    k0 = np.sqrt(k_static_sq)
+    """g1² and its derivative with respect to log-BFi ``u`` (shape (n, 1)), per lag.
+
+    With q = flow_coef · BFi · τ, K = √(K0² + q), dK/du = q / (2K), so
+    d(g1²)/du = 2 g1² · (d log G/dK) · q / (2K) = g1² · (d log G/dK) · q / K.
+    Written with in-place operations: this is the hot loop of the fitter.
+    """
+    q = (geom["flow_coef"] * np.exp(u)) * lags
+    k = q + geom["k_static_sq"]
+    np.sqrt(k, out=k)
     r1, r2 = geom["r1"], geom["r2"]
-    tail = np.exp(-k * (r2 - r1))
-    tail0 = np.exp(-k0 * (r2 - r1))
+    k0 = np.sqrt(geom["k_static_sq"])
+    tail = k * (r1 - r2)
+    np.maximum(tail, _EXP_FLOOR, out=tail)  # below e^-300 the value is 0 for all purposes,
+    np.exp(tail, out=tail)  # e^{-K (r2 - r1)}   and exp() is much slower in underflow
     if observable == "fluence":
-        value = 1.0 / r1 - tail / r2
-        value0 = 1.0 / r1 - tail0 / r2
-        dlog_dk = -(1.0 - tail) / value
+        inv_r1 = 1.0 / r1
+        value = tail * (-1.0 / r2)
+        value += inv_r1
+        value0 = inv_r1 - np.exp(-k0 * (r2 - r1)) / r2
+        slope = tail - 1.0  # d log G/dK = -(1 - tail)/value
     else:
         a1 = geom["z0"] / r1**2
-        a2 = geom["z_image"] * tail / r2**2
+        a2 = (geom["z_image"] / r2**2) * tail
         value = a1 * (k + 1.0 / r1) + a2 * (k + 1.0 / r2)
-        value0 = a1 * (k0 + 1.0 / r1) + geom["z_image"] * tail0 / r2**2 * (k0 + 1.0 / r2)
-        dlog_dk = -k * (a1 * r1 + a2 * r2) / value
-    g1 = np.exp(-(k - k0) * r1) * (value / value0)
-    g1sq = g1 * g1
-    dk_du = flow_coef * bfi_tau / (2.0 * k)
-    return g1sq, 2.0 * g1sq * dlog_dk * dk_du
+        value0 = a1 * (k0 + 1.0 / r1) + geom["z_image"] * np.exp(-k0 * (r2 - r1)) / r2**2 * (
+            k0 + 1.0 / r2
+        )
+        slope = -k * (a1 * r1 + a2 * r2)
+    slope /= value
+    g1sq = k * (-2.0 * r1)
+    g1sq += 2.0 * k0 * r1
+    np.maximum(g1sq, _EXP_FLOOR, out=g1sq)
+    np.exp(g1sq, out=g1sq)  # e^{-2 (K - K0) r1}
+    value *= 1.0 / value0
+    value *= value
+    g1sq *= value
+    # derivative: g1² · slope · q / K
+    q /= k
+    q *= slope
+    q *= g1sq
+    return g1sq, q
 
 
-def _evaluate(u, beta_fixed, y, w, lags, geom, observable):
+def _evaluate(u, beta_fixed, wy, w, lags, geom, observable):
     """β (profiled or fixed), weighted residual, χ² and the reduced Jacobian column."""
     with np.errstate(over="ignore", invalid="ignore", under="ignore"):
         g1sq, dg_du = _g1_squared(u[:, None], lags, geom, observable)
@@ -155,21 +182,69 @@ def _evaluate(u, beta_fixed, y, w, lags, geom, observable):
         # β enters linearly: its least-squares value for this u (variable projection),
         # kept within (0, BETA_MAX]; a clamped β acts as fixed for this step
         with np.errstate(divide="ignore", invalid="ignore"):
-            beta = np.einsum("ij,ij->i", jb, w * (y - 1.0)) / np.einsum("ij,ij->i", jb, jb)
+            beta = np.einsum("ij,ij->i", jb, wy) / np.einsum("ij,ij->i", jb, jb)
         free = (beta > _BETA_MIN) & (beta < BETA_MAX)
         beta = np.clip(beta, _BETA_MIN, BETA_MAX)
     else:
         beta = beta_fixed
     with np.errstate(invalid="ignore"):
-        resid = w * (y - 1.0) - beta[:, None] * jb
+        resid = wy - beta[:, None] * jb
         chi = np.einsum("ij,ij->i", resid, resid)
-        ju = w * beta[:, None] * dg_du
+        dg_du *= w
+        dg_du *= beta[:, None]
+        ju = dg_du
     if free.any():
         # Kaufman's reduced Jacobian: remove the part of d(model)/du along the β column
         with np.errstate(divide="ignore", invalid="ignore"):
             proj = np.einsum("ij,ij->i", ju, jb) / np.einsum("ij,ij->i", jb, jb)
         ju = ju - np.where(free, proj, 0.0)[:, None] * jb
     return beta, resid, chi, ju
+
+
+def _grid_start(wy, w, lags, geom, observable, u_guess, fixed, group):
+    """Starting log-BFi per curve: minimum of the (β-profiled) χ² over a grid, refined by
+    a parabola through the grid minimum and its neighbours.
+
+    The grid spans the 1st-99th percentiles of the crossing-based guesses ± 1 (a factor
+    2.7 in BFi) in steps of :data:`_GRID_STEP`, at most 151 points; each geometry's
+    model table (n_grid, n_lags) is evaluated once and
+    χ² on the grid comes from two matrix products, so this costs far less than one
+    iteration while putting every curve next to its global minimum.
+    """
+    start = u_guess.copy()
+    ww = w * w
+    wwy = w * wy
+    syy = np.einsum("ij,ij->i", wy, wy)
+    for g in np.unique(group):
+        rows = np.flatnonzero(group == g)
+        lo, hi = np.percentile(u_guess[rows], [1.0, 99.0]) + np.array([-1.0, 1.0])
+        n_grid = int(min(np.ceil((hi - lo) / _GRID_STEP), 150)) + 1
+        grid = np.linspace(lo, hi, n_grid)
+        step = (hi - lo) / (n_grid - 1)
+        geom_g = {k: v[rows[:1]] for k, v in geom.items()}  # (1, 1): one geometry
+        with np.errstate(over="ignore", invalid="ignore", under="ignore"):
+            table_g, _ = _g1_squared(grid[:, None], lags, geom_g, observable)
+        # einsum, not BLAS: small products, and threaded BLAS costs more than it saves here
+        cross = np.einsum("ij,kj->ik", wwy[rows], table_g)  # Σ w² (y - 1) g1²  (n_rows, n_grid)
+        power = np.einsum("ij,kj->ik", ww[rows], table_g * table_g)  # Σ w² g1⁴
+        if fixed is None:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                beta = np.clip(cross / power, _BETA_MIN, BETA_MAX)
+        else:
+            beta = fixed[rows][:, None]
+        chi = syy[rows][:, None] - 2.0 * beta * cross + beta * beta * power
+        chi = np.where(np.isfinite(chi), chi, np.inf)
+        best = np.argmin(chi, axis=1)
+        inner = (best > 0) & (best < n_grid - 1)
+        j = np.clip(best, 1, n_grid - 2)
+        r = np.arange(rows.size)
+        c_m, c_0, c_p = chi[r, j - 1], chi[r, j], chi[r, j + 1]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            shift = 0.5 * (c_m - c_p) / (c_m - 2.0 * c_0 + c_p)
+        shift = np.where(inner & np.isfinite(shift), np.clip(shift, -1.0, 1.0), 0.0)
+        # a minimum on the grid's edge: keep the crossing-based guess
+        start[rows] = np.where(inner, grid[j] + shift * step, u_guess[rows])
+    return start
 
 
 def _lm(y, w, lags, geom, observable, u, beta, fit_beta, max_iter, xtol, ftol):
@@ -186,55 +261,61 @@ def _lm(y, w, lags, geom, observable, u, beta, fit_beta, max_iter, xtol, ftol):
     Returns u, beta, n_iter, converged and the weighted residuals at the solution.
     """
     n = y.shape[0]
-    u = u.copy()
-    beta_fixed = None if fit_beta else beta.copy()
-    lam = np.full(n, 1e-3)
+    wy = w * (y - 1.0)
+    fixed = None if fit_beta else beta.copy()
+    out_u = u.copy()
+    out_beta = beta.copy()
+    out_resid = np.empty_like(y)
     n_iter = np.zeros(n, dtype=int)
     converged = np.zeros(n, dtype=bool)
-    beta, resid, chi, ju = _evaluate(u, beta_fixed, y, w, lags, geom, observable)
+    # working set: the curves still iterating; finished ones are written out and dropped
+    ids = np.arange(n)
+    u = u.copy()
+    b, resid, chi, ju = _evaluate(u, fixed, wy, w, lags, geom, observable)
     grad = -np.einsum("ij,ij->i", ju, resid)
     prev_u = np.full(n, np.nan)
     prev_grad = np.full(n, np.nan)
-    active = np.ones(n, dtype=bool)
+    lam = np.full(n, 1e-3)
     for _ in range(max_iter):
-        idx = np.flatnonzero(active)
-        if idx.size == 0:
+        if ids.size == 0:
             break
-        n_iter[idx] += 1
-        ji = ju[idx]
-        gi = grad[idx]
-        curv = np.einsum("ij,ij->i", ji, ji)
+        n_iter[ids] += 1
+        curv = np.einsum("ij,ij->i", ju, ju)
         with np.errstate(divide="ignore", invalid="ignore"):
-            secant = (gi - prev_grad[idx]) / (u[idx] - prev_u[idx])
-        curv = np.where(np.isfinite(secant) & (secant > 0), secant, curv)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            du = -gi / (curv * (1.0 + lam[idx]))
+            secant = (grad - prev_grad) / (u - prev_u)
+            curv = np.where(np.isfinite(secant) & (secant > 0), secant, curv)
+            du = -grad / (curv * (1.0 + lam))
         du = np.where(np.isfinite(du), np.clip(du, -3.0, 3.0), 0.0)
-        u_t = u[idx] + du
-        geom_i = {k: v[idx] for k, v in geom.items()}
-        fixed_i = None if beta_fixed is None else beta_fixed[idx]
-        b_t, r_t, chi_t, j_t = _evaluate(u_t, fixed_i, y[idx], w[idx], lags, geom_i, observable)
+        u_t = u + du
+        b_t, r_t, chi_t, j_t = _evaluate(u_t, fixed, wy, w, lags, geom, observable)
         g_t = -np.einsum("ij,ij->i", j_t, r_t)
-        better = chi_t < chi[idx]
+        better = chi_t < chi
         small = np.abs(du) <= xtol
-        settled = (chi[idx] - chi_t) <= ftol * chi_t
+        settled = (chi - chi_t) <= ftol * chi_t
         # secant pair: the other end is the old point (accepted) or the trial (rejected)
-        prev_u[idx] = np.where(better, u[idx], u_t)
-        prev_grad[idx] = np.where(better, gi, g_t)
-        acc = idx[better]
-        u[acc] = u_t[better]
-        beta[acc] = b_t[better]
-        resid[acc], chi[acc], ju[acc], grad[acc] = (
-            r_t[better],
-            chi_t[better],
-            j_t[better],
-            g_t[better],
-        )
-        lam[idx] = np.where(better, lam[idx] * 0.3, np.maximum(lam[idx] * 4.0, 1e-2))
+        prev_u = np.where(better, u, u_t)
+        prev_grad = np.where(better, grad, g_t)
+        u = np.where(better, u_t, u)
+        b = np.where(better, b_t, b)
+        chi = np.where(better, chi_t, chi)
+        grad = np.where(better, g_t, grad)
+        resid = np.where(better[:, None], r_t, resid)
+        ju = np.where(better[:, None], j_t, ju)
+        lam = np.where(better, lam * 0.3, np.maximum(lam * 4.0, 1e-2))
         done = small | (better & settled)
-        converged[idx[done]] = True
-        active[idx[done | (lam[idx] > 1e12)]] = False
-    return u, beta, n_iter, converged, resid
+        converged[ids[done]] = True
+        stop = done | (lam > 1e12)
+        if stop.any():
+            fin = ids[stop]
+            out_u[fin], out_beta[fin], out_resid[fin] = u[stop], b[stop], resid[stop]
+            keep = ~stop
+            ids, u, b, chi, grad = ids[keep], u[keep], b[keep], chi[keep], grad[keep]
+            prev_u, prev_grad, lam = prev_u[keep], prev_grad[keep], lam[keep]
+            resid, ju, wy, w = resid[keep], ju[keep], wy[keep], w[keep]
+            geom = {k: v[keep] for k, v in geom.items()}
+            fixed = None if fixed is None else fixed[keep]
+    out_u[ids], out_beta[ids], out_resid[ids] = u, b, resid
+    return out_u, out_beta, n_iter, converged, out_resid
 
 
 def _per_curve(value, n_curves, name):
@@ -268,9 +349,9 @@ def fit_g2(
     max_misfit_ratio: float = 4.0,
     max_reduced_chi2: float | None = None,
     max_iter: int = 50,
-    xtol: float = 1e-8,
-    ftol: float = 1e-10,
-    chunk_size: int = 8192,
+    xtol: float = 1e-7,
+    ftol: float = 1.5e-8,
+    chunk_size: int = 512,
 ) -> G2FitResult:
     """Fit BFi (cm²/s) and β to every g2 curve at once with the semi-infinite model.
 
@@ -321,13 +402,14 @@ def fit_g2(
     max_reduced_chi2 : float, optional
         Also mark "poor fit" above this reduced χ² (meaningful with a noise model).
     max_iter : int, default=50
-    xtol : float, default=1e-8
-        Convergence when the log-BFi step (≈ relative BFi step) and the relative β step
-        fall below this.
-    ftol : float, default=1e-10
-        ... or when an accepted step lowers χ² by less than this fraction.
-    chunk_size : int, default=8192
-        Curves fitted together; bounds memory to ~15 arrays of (chunk_size, n_lags).
+    xtol : float, default=1e-7
+        Convergence when the log-BFi step (≈ relative BFi step) falls below this ...
+    ftol : float, default=1.5e-8
+        ... or when an accepted step lowers χ² by less than this fraction (the default
+        of MINPACK's ``lmdif`` as used by ``scipy.optimize.curve_fit``).
+    chunk_size : int, default=512
+        Curves fitted together; bounds memory to ~15 arrays of (chunk_size, n_lags)
+        (a few hundred keeps the temporaries small, which is faster than larger chunks).
 
     Returns
     -------
@@ -389,6 +471,19 @@ def fit_g2(
         "n_used": np.zeros(n_curves, dtype=int),
     }
     flags = {reason: np.zeros(n_curves, dtype=bool) for reason in BLOCKING_REASONS}
+    # per-curve geometry and decay products, once (few distinct geometries: one per channel)
+    geom_all = _geometry(
+        per_curve["separation_cm"], per_curve["mua_per_cm"], per_curve["musp_per_cm"],
+        n, wavelength_nm, reff,
+    )  # fmt: skip
+    geom_all = {k: np.broadcast_to(geom_all[k], (n_curves,)).copy() for k in _GEOM_KEYS}
+    _, group_all = np.unique(
+        np.stack([geom_all[k] for k in _GEOM_KEYS], axis=1), axis=0, return_inverse=True
+    )
+    group_all = group_all.ravel()
+    x_half = decay_product_cm2(np.exp(-0.5), geom_all, observable)
+    noise_model = sigma is None and weighting == "noise-model"
+    x_e = decay_product_cm2(np.exp(-1.0), geom_all, observable) if noise_model else None
     for start in range(0, n_curves, chunk_size):
         sl = slice(start, min(start + chunk_size, n_curves))
         chunk_flags = _fit_chunk(
@@ -396,10 +491,10 @@ def fit_g2(
             wrong_length[sl],
             lags,
             in_range,
-            {k: v[sl] for k, v in per_curve.items()},
-            n=n,
-            wavelength_nm=wavelength_nm,
-            reff=reff,
+            {k: v[sl] for k, v in geom_all.items()},
+            group_all[sl],
+            x_half[sl],
+            None if x_e is None else x_e[sl],
             observable=observable,
             beta=beta,
             fit_beta=fit_beta,
@@ -468,11 +563,11 @@ def _fit_chunk(
     wrong,
     lags,
     in_range,
-    optics,
+    geom,
+    group,
+    x_half,
+    x_e,
     *,
-    n,
-    wavelength_nm,
-    reff,
     observable,
     beta,
     fit_beta,
@@ -495,15 +590,8 @@ def _fit_chunk(
     if idx.size == 0:
         return flags
     y = y_all[idx]
-    geom = _geometry(
-        optics["separation_cm"][idx],
-        optics["mua_per_cm"][idx],
-        optics["musp_per_cm"][idx],
-        n,
-        wavelength_nm,
-        reff,
-    )
-    geom = {k: np.broadcast_to(geom[k], (idx.size,))[:, None].copy() for k in _GEOM_KEYS}
+    geom = {k: v[idx][:, None] for k, v in geom.items()}
+    group = group[idx]
 
     # starting values
     first = np.argmax(in_range)
@@ -525,15 +613,13 @@ def _fit_chunk(
     pos_hi = np.argmax(rank >= np.minimum(above + 1, mask.sum(1))[:, None], axis=1)
     log_tau_e = 0.5 * (log_lags[pos_lo] + log_lags[pos_hi])
     log_tau_e = np.where(above >= mask.sum(1), log_lags[pos_hi] + np.log(2.0), log_tau_e)
-    x_half = decay_product_cm2(np.exp(-0.5), {k: v[:, 0] for k, v in geom.items()}, observable)
-    u0 = np.log(x_half) - log_tau_e
+    u0 = np.log(x_half[idx]) - log_tau_e
 
     if sigma is not None:
         s = np.broadcast_to(sigma, (n_chunk, n_lags))[idx]
         w = np.where(mask, 1.0 / s, 0.0)
     elif weighting == "noise-model":
-        x_e = decay_product_cm2(np.exp(-1.0), {k: v[:, 0] for k, v in geom.items()}, observable)
-        gamma = np.exp(u0) / x_e  # 1/s: g1 ≈ e^{-Γτ}, Γ = BFi0 / (BFi·τ at g1 = 1/e)
+        gamma = np.exp(u0) / x_e[idx]  # 1/s: g1 ≈ e^{-Γτ}, Γ = BFi0 / (BFi·τ at g1 = 1/e)
         s = g2_noise_sd(
             lags,
             beta=b_start,
@@ -546,14 +632,17 @@ def _fit_chunk(
         w = mask.astype(float)
     y = np.where(mask, y, 1.0)  # masked lags carry zero weight; keep them finite
 
+    fixed = None if fit_beta else b_start
+    wy = w * (y - 1.0)
+    u_start = _grid_start(wy, w, lags, geom, observable, u0, fixed, group)
     u, b, n_iter, converged, resid = _lm(
-        y, w, lags, geom, observable, u0, b_start, fit_beta, max_iter, xtol, ftol
+        y, w, lags, geom, observable, u_start, b_start, fit_beta, max_iter, xtol, ftol
     )
     n_used = mask.sum(axis=1)
     n_par = 2 if fit_beta else 1
     chi = np.einsum("ij,ij->i", resid, resid)
-    g1sq, _ = _g1_squared(u[:, None], lags, geom, observable)
-    raw = np.where(mask, y - 1.0 - b[:, None] * g1sq, 0.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        raw = np.where(w > 0, resid / w, 0.0)  # unweighted residual on the lags used
     pair = mask[:, 1:] & mask[:, :-1]
     diff = np.where(pair, np.diff(resid, axis=1), 0.0)
     with np.errstate(divide="ignore", invalid="ignore"):

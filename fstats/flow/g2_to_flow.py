@@ -52,7 +52,7 @@ def flow_from_g2(
     min_count_rate_hz: float = 2000.0,
     max_misfit_ratio: float = 4.0,
     max_bad_fraction: float = 0.2,
-    chunk_size: int = 8192,
+    chunk_size: int = 512,
     **cleaning,
 ) -> Recording:
     """Fit BFi (cm²/s) to every g2 curve of a recording and clean the resulting flow.
@@ -89,7 +89,7 @@ def flow_from_g2(
     max_bad_fraction : float, default=0.2
         A :class:`~fstats.errors.QualityWarning` names channels where more than this
         fraction of curves could not be fitted or was marked.
-    chunk_size : int, default=8192
+    chunk_size : int, default=512
         Curves fitted together.
     **cleaning
         Options of :func:`fstats.flow.clean_flow` (``motion``, ``baseline_window_s``,

@@ -8,7 +8,6 @@ A bad curve never stops the recording.
 
 from __future__ import annotations
 
-import warnings
 from collections.abc import Sequence
 
 import numpy as np
@@ -120,7 +119,7 @@ def screen_curves(
         g2 - 1 averaged over the first half of the fitted lags must exceed this, else
         the curve is "g2 below 1" (no correlation left, or a wrongly normalised curve).
     max_tail_ratio : float, default=0.5
-        The median of g2 - 1 over the last quarter of the fitted lags, divided by the
+        The mean of g2 - 1 over the last quarter of the fitted lags, divided by the
         mean over the first half, must stay below this, else "non-decaying g2".
     n_edge : int, default=3
         Least number of lags averaged at either end.
@@ -143,17 +142,18 @@ def screen_curves(
     open_ = ~(wrong | nonfinite)
 
     excess = np.where(mask, g2 - 1.0, np.nan)
-    # head: first half of the fitted lags (mean); tail: last quarter (median).  Both
+    # head: first half of the fitted lags; tail: last quarter (means).  Both
     # average many lags, because the first lags of a correlator (smallest bins) carry
     # the most photon noise.
     order = np.cumsum(mask, axis=1)
     count = mask.sum(axis=1, keepdims=True)
     head = mask & (order <= np.maximum(count // 2, n_edge))
     tail = mask & (order > count - np.maximum(count // 4, n_edge))
-    with np.errstate(invalid="ignore"), warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN rows of blocked curves
-        head_mean = np.nanmean(np.where(head & open_[:, None], excess, np.nan), axis=1)
-        tail_mean = np.nanmedian(np.where(tail & open_[:, None], excess, np.nan), axis=1)
+    head &= open_[:, None]
+    tail &= open_[:, None]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        head_mean = np.where(head, excess, 0.0).sum(axis=1) / head.sum(axis=1)
+        tail_mean = np.where(tail, excess, 0.0).sum(axis=1) / tail.sum(axis=1)
     below = open_ & ~(head_mean > min_excess)
     open_ &= ~below
     flat = open_ & ~(tail_mean < max_tail_ratio * head_mean)
