@@ -6,7 +6,7 @@ Columns (tab-separated, one row per flow column, any order):
 column            required  meaning
 ================  ========  ===============================================================
 ``name``          yes       channel name, exactly as in the flow table header
-``separation_cm`` yes       source-detector separation in cm (> 0)
+``separation_cm`` yes       source-detector separation in cm (0 < s <= 10)
 ``role``          no        ``short`` or ``long``; ``n/a`` or absent: decided by separation
 ``wavelength_nm`` no        laser wavelength in nm
 ``units``         no        ``cm2/s`` (BFi) or ``relative`` (baseline 1); the same for all rows
@@ -35,12 +35,22 @@ from fstats.inputs._tabular import (
 )
 from fstats.inputs.recording import FLOW_UNITS, SHORT_SEPARATION_THRESHOLD_CM, Channel
 
-__all__ = ["CHANNEL_ROLES", "read_channels", "read_channel_table", "write_channels"]
+__all__ = [
+    "CHANNEL_ROLES",
+    "MAX_SEPARATION_CM",
+    "read_channels",
+    "read_channel_table",
+    "write_channels",
+]
 
 logger = logging.getLogger(__name__)
 
 #: Values of the optional ``role`` column.
 CHANNEL_ROLES: tuple[str, ...] = ("short", "long")
+
+#: Larger separations are refused as a unit mistake: DCS detects too few photons beyond a
+#: few cm (brain-sensitive channels sit at 2.5-4 cm), while 10-40 looks like millimetres.
+MAX_SEPARATION_CM: float = 10.0
 
 _KNOWN_COLUMNS = ("name", "separation_cm", "role", "wavelength_nm", "units")
 
@@ -99,12 +109,15 @@ def read_channel_table(
             )
         seen[name] = int(line)
         separation = float(separations[row])
-        if not (np.isfinite(separation) and separation > 0):
+        if not (np.isfinite(separation) and 0 < separation <= MAX_SEPARATION_CM):
             raise InputError(
                 path,
                 f"line {line}, column 'separation_cm'",
-                "a source-detector separation in cm > 0",
+                f"a source-detector separation in cm, > 0 and <= {MAX_SEPARATION_CM:g}",
                 table.rows[row][table.index("separation_cm")],
+                hint="separations look like mm; give them in cm"
+                if separation > MAX_SEPARATION_CM
+                else None,
             )
         role = roles[row].lower()
         if role and role not in CHANNEL_ROLES:

@@ -61,6 +61,7 @@ from fstats.inputs._hdf5 import (
 )
 from fstats.inputs._naming import recording_stem, stem_entities
 from fstats.inputs._validate import check_flow_values, clean_times, fill_missing, regular_grid
+from fstats.inputs.channels import MAX_SEPARATION_CM
 from fstats.inputs.recording import (
     SHORT_SEPARATION_THRESHOLD_CM,
     Channel,
@@ -253,12 +254,13 @@ def _channels(path, probe, meta, keys, to_cm, short_threshold_cm):
         dims = min(sources.shape[1], detectors.shape[1])
         distance = np.linalg.norm(sources[s - 1, :dims] - detectors[d - 1, :dims]) * to_cm
         separation = round(float(distance), 6)
-        if not separation > 0:
+        if not 0 < separation <= MAX_SEPARATION_CM:
             raise InputError(
                 path,
                 f"{probe.name}/detectorPos3D",
-                f"detector {d} apart from source {s}",
-                "zero separation",
+                f"detector {d} 0-{MAX_SEPARATION_CM:g} cm from source {s}",
+                f"{separation:g} cm",
+                hint="check metaDataTags/LengthUnit" if separation else None,
             )
         wavelength = float(wavelengths[w - 1])
         channels.append(

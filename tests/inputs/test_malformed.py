@@ -193,6 +193,13 @@ def channels_bad_separation(tmp_path, build):
     return path, channels, ["line 3, column 'separation_cm'", "> 0"]
 
 
+def channels_in_millimetres(tmp_path, build):
+    path = _tsv(tmp_path, build)
+    channels = tmp_path / f"{STEM}_channels.tsv"
+    _set_cell(channels, 4, 1, "30")
+    return path, channels, ["line 4, column 'separation_cm'", "look like mm"]
+
+
 def channels_bad_role(tmp_path, build):
     path = _tsv(tmp_path, build)
     channels = tmp_path / f"{STEM}_channels.tsv"
@@ -268,6 +275,14 @@ def snirf_nonpositive_lags(tmp_path, build):
     return path, path, ["/nirs/probe/correlationTimeDelays", "lag times > 0"]
 
 
+def snirf_wrong_length_unit(tmp_path, build):
+    path = _snirf(tmp_path, build)
+    with h5py.File(path, "r+") as f:
+        del f["/nirs/metaDataTags/LengthUnit"]
+        f["/nirs/metaDataTags"].create_dataset("LengthUnit", data="m")
+    return path, path, ["/nirs/probe/detectorPos3D", "LengthUnit"]
+
+
 def snirf_negative_bfi(tmp_path, build):
     path = _snirf(tmp_path, build)
     with h5py.File(path, "r+") as f:
@@ -317,6 +332,7 @@ CASES = [
     channels_not_matching_header,
     channels_sidecar_missing,
     channels_bad_separation,
+    channels_in_millimetres,
     channels_bad_role,
     channels_bad_unit,
     event_after_end,
@@ -327,6 +343,7 @@ CASES = [
     snirf_missing_time,
     snirf_g2_without_lags,
     snirf_nonpositive_lags,
+    snirf_wrong_length_unit,
     snirf_negative_bfi,
     snirf_stim_after_end,
     snirf_not_hdf5,
