@@ -49,12 +49,23 @@ logger = logging.getLogger(__name__)
 ProgressHook = Callable[[StudyProgress], None]
 
 
+#: Files a recording may consist of, after its stem (CONTRACTS §1).
+_RECORDING_PARTS = (
+    "_flow.tsv",
+    "_flow.csv",
+    "_channels.tsv",
+    "_events.tsv",
+    "_aux.tsv",
+    "_dcs.snirf",
+)
+
+
 def _input_files(recording: StudyRecording) -> list[Path]:
-    """The main file and every sidecar sharing its stem."""
+    """The main data file and the sidecars sharing its stem."""
     folder = recording.path.parent
     files = {recording.path}
-    files.update(p for p in folder.glob(f"{recording.stem}_*") if p.is_file())
-    return sorted(files)
+    files.update(folder / f"{recording.stem}{part}" for part in _RECORDING_PARTS)
+    return sorted(p for p in files if p.is_file())
 
 
 def _fstats_version() -> str:
