@@ -123,11 +123,12 @@ def fit_mixed(
         warnings.simplefilter("always")
         model = smf.mixedlm(f"{lhs} ~ {rhs}", data, groups=data[subject_column])
         fit = model.fit(reml=reml)
+        fe_params, bse_fe = fit.fe_params, fit.bse_fe  # computed here so warnings are caught
     crit = float(stats.norm.ppf(1 - alpha / 2))
     rows = []
     for name in model.exog_names:
-        estimate = float(fit.fe_params[name])
-        se = float(fit.bse_fe[name])
+        estimate = float(fe_params[name])
+        se = float(bse_fe[name])
         z = estimate / se if se > 0 else np.nan
         rows.append(
             {

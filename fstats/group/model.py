@@ -382,6 +382,8 @@ def _mixed_rows(model: GroupModel, unit, base: dict, prepared) -> list[dict]:
     out = []
     names = [c["name"] for c in res["coefficients"]]
     status = "ok" if res["converged"] else "mixed model did not converge"
+    if not all(np.isfinite(c["se"]) for c in res["coefficients"]):
+        status = "mixed model: standard errors not available (singular fit)"
     if res["warnings"]:
         status += "; " + "; ".join(res["warnings"])
     for coef in res["coefficients"]:
