@@ -145,8 +145,8 @@ def calibrate(n_cohorts: int, n_per_group: int, seed: int, alpha: float = 0.05) 
         for name, options in MODELS.items():
             model = GroupModel(**options, influence=False, channels=("frontal_a",))
             p = np.array([_p(model.fit(t, part)) for t, part in cohorts])
-            k = int(np.sum(p <= alpha))
-            rates[name] = (k / n_cohorts, *wilson(k, n_cohorts))
+            k = int(np.sum(p <= alpha))  # a test without a p-value counts as not rejected
+            rates[name] = (k / n_cohorts, *wilson(k, n_cohorts), int(np.sum(~np.isfinite(p))))
         out[label] = rates
     return out
 
@@ -274,8 +274,9 @@ def main() -> None:
     )
     for label, by_model in rates.items():
         print(f"\n{label}: rejection rate [Wilson 95 % interval]")
-        for name, (rate, lo, hi) in by_model.items():
-            print(f"  {name:40s} {rate:6.3f}  [{lo:.3f}, {hi:.3f}]")
+        for name, (rate, lo, hi, n_missing) in by_model.items():
+            note = f"  ({n_missing} cohorts without a p-value)" if n_missing else ""
+            print(f"  {name:40s} {rate:6.3f}  [{lo:.3f}, {hi:.3f}]{note}")
     extras = null_extras(max(300, args.cohorts // 2), args.n_per_group, args.seed)
     print()
     for name, rate in extras.items():
