@@ -10,8 +10,12 @@ import numpy as np
 
 from fstats.errors import InputError, suggest
 from fstats.inputs._validate import clean_times
+from fstats.inputs.channels import MAX_SEPARATION_CM
 from fstats.inputs.events import check_event_times
-from fstats.inputs.recording import AuxSignal, TaskTiming
+from fstats.inputs.recording import AuxSignal, Channel, TaskTiming
+
+#: metaDataTags entry (ours) listing the short-separation channels, joined by ";".
+SHORT_CHANNELS_TAG = "fstats_short_channels"
 
 __all__ = [
     "numbered",
@@ -22,6 +26,8 @@ __all__ = [
     "unit_factor",
     "positions",
     "time_base",
+    "probe_channels",
+    "SHORT_CHANNELS_TAG",
     "read_stims",
     "read_aux_groups",
 ]
@@ -100,6 +106,57 @@ def time_base(path: Path, data: h5py.Group, n_times: int, to_s: float) -> np.nda
             f"{time.size} values",
         )
     return time * to_s
+
+
+def probe_channels(path, probe, meta, keys, to_cm, short_threshold_cm):
+    """Channel keys (source, detector, wavelength) and Channel objects from the probe."""
+    dcs = sorted((k for k in keys if k[0] != "count rate"), key=lambda k: k[0] != "BFi")
+    channel_keys = list(dict.fromkeys(k[1] for k in dcs))
+    sources, detectors = positions(path, probe, "source"), positions(path, probe, "detector")
+    wavelengths = (
+        np.asarray(probe["wavelengths"][()], dtype=float).reshape(-1)
+        if "wavelengths" in probe
+        else np.array([np.nan])
+    )
+    labels = texts(probe["detectorLabels"]) if "detectorLabels" in probe else []
+    names = []
+    for s, d, w in channel_keys:
+        for index, table, what in (
+            (s, sources, "sourceIndex"),
+            (d, detectors, "detectorIndex"),
+            (w, wavelengths, "wavelengthIndex"),
+        ):
+            if not 1 <= index <= len(table):
+                raise InputError(path, f"measurementList {what}", f"1..{len(table)}", index)
+        names.append(labels[d - 1] if len(labels) >= d else f"S{s}-D{d}")
+    if len(set(names)) < len(names):
+        names = [f"S{s}-D{d}-W{w}" for s, d, w in channel_keys]
+    short = None
+    if meta is not None and SHORT_CHANNELS_TAG in meta:
+        short = {n for n in text(meta[SHORT_CHANNELS_TAG][()]).split(";") if n}
+    channels = []
+    for name, (s, d, w) in zip(names, channel_keys, strict=True):
+        dims = min(sources.shape[1], detectors.shape[1])
+        distance = np.linalg.norm(sources[s - 1, :dims] - detectors[d - 1, :dims]) * to_cm
+        separation = round(float(distance), 6)
+        if not 0 < separation <= MAX_SEPARATION_CM:
+            raise InputError(
+                path,
+                f"{probe.name}/detectorPos3D",
+                f"detector {d} 0-{MAX_SEPARATION_CM:g} cm from source {s}",
+                f"{separation:g} cm",
+                hint="check metaDataTags/LengthUnit" if separation else None,
+            )
+        wavelength = float(wavelengths[w - 1])
+        channels.append(
+            Channel(
+                name=name,
+                separation_cm=separation,
+                is_short=(name in short) if short is not None else separation <= short_threshold_cm,
+                wavelength_nm=wavelength if np.isfinite(wavelength) else None,
+            )
+        )
+    return channel_keys, tuple(channels)
 
 
 def read_stims(path: Path, nirs: h5py.Group, start_s: float, end_s: float) -> TaskTiming | None:

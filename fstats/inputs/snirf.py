@@ -48,23 +48,27 @@ import numpy as np
 
 from fstats.errors import InputError, suggest
 from fstats.inputs._hdf5 import (
+    SHORT_CHANNELS_TAG,
     dataset,
     integer,
     numbered,
-    positions,
+    probe_channels,
     read_aux_groups,
     read_stims,
     text,
-    texts,
     time_base,
     unit_factor,
 )
 from fstats.inputs._naming import recording_stem, stem_entities
-from fstats.inputs._validate import check_flow_values, clean_times, fill_missing, regular_grid
-from fstats.inputs.channels import MAX_SEPARATION_CM
+from fstats.inputs._validate import (
+    check_flow_values,
+    clean_times,
+    fill_missing,
+    note_repair,
+    regular_grid,
+)
 from fstats.inputs.recording import (
     SHORT_SEPARATION_THRESHOLD_CM,
-    Channel,
     Recording,
 )
 
@@ -86,8 +90,6 @@ _OTHER_TYPES = {
 _LENGTH_TO_CM = {"mm": 0.1, "cm": 1.0, "m": 100.0}
 _TIME_TO_S = {"s": 1.0, "ms": 1e-3, "us": 1e-6}
 _BFI_UNITS = {"cm2/s": ("cm2/s", 1.0), "mm2/s": ("cm2/s", 0.01), "relative": ("relative", 1.0)}
-#: metaDataTags entry (ours) listing the short-separation channels, joined by ";".
-SHORT_CHANNELS_TAG = "fstats_short_channels"
 
 
 def read_snirf(
@@ -155,6 +157,7 @@ def _read(path: Path, handle: h5py.File, short_threshold_cm: float) -> Recording
     columns: list[np.ndarray] = []  # one series per DCS measurement
     keys: list[tuple] = []  # (kind, (source, detector, wavelength), dataTypeIndex, unit, where)
     ignored: list[int] = []  # dataType codes of measurements that are not DCS
+    repairs: list[dict] = []
     for block in blocks:
         data = nirs[block]
         series = np.asarray(
@@ -167,6 +170,16 @@ def _read(path: Path, handle: h5py.File, short_threshold_cm: float) -> Recording
             raise InputError(
                 path, f"{data.name}/dataTimeSeries", "a 2-D array with data", series.shape
             )
+        lists = numbered(data, "measurementList")
+        n_time = dataset(path, data, "time", "sample times").size
+        if series.shape[0] == len(lists) != series.shape[1] and series.shape[1] == n_time:
+            series = series.T
+            note_repair(
+                repairs,
+                "transposed_data",
+                f"{path}: {data.name}/dataTimeSeries stored as (n_measurements, n_times); "
+                "read transposed",
+            )
         block_times = time_base(path, data, series.shape[0], to_s)
         if times is None:
             times = block_times
@@ -177,7 +190,6 @@ def _read(path: Path, handle: h5py.File, short_threshold_cm: float) -> Recording
                 f"the time base of {nirs.name}/data1",
                 "different sample times",
             )
-        lists = numbered(data, "measurementList")
         if len(lists) != series.shape[1]:
             raise InputError(
                 path,
@@ -221,61 +233,15 @@ def _read(path: Path, handle: h5py.File, short_threshold_cm: float) -> Recording
             len(ignored),
             sorted(set(ignored)),
         )
-    return _assemble(path, nirs, probe, meta, times, columns, keys, to_cm, to_s, short_threshold_cm)
-
-
-def _channels(path, probe, meta, keys, to_cm, short_threshold_cm):
-    dcs = sorted((k for k in keys if k[0] != "count rate"), key=lambda k: k[0] != "BFi")
-    channel_keys = list(dict.fromkeys(k[1] for k in dcs))
-    sources, detectors = positions(path, probe, "source"), positions(path, probe, "detector")
-    wavelengths = (
-        np.asarray(probe["wavelengths"][()], dtype=float).reshape(-1)
-        if "wavelengths" in probe
-        else np.array([np.nan])
+    return _assemble(
+        path, nirs, probe, meta, times, columns, keys, to_cm, to_s, short_threshold_cm, repairs
     )
-    labels = texts(probe["detectorLabels"]) if "detectorLabels" in probe else []
-    names = []
-    for s, d, w in channel_keys:
-        for index, table, what in (
-            (s, sources, "sourceIndex"),
-            (d, detectors, "detectorIndex"),
-            (w, wavelengths, "wavelengthIndex"),
-        ):
-            if not 1 <= index <= len(table):
-                raise InputError(path, f"measurementList {what}", f"1..{len(table)}", index)
-        names.append(labels[d - 1] if len(labels) >= d else f"S{s}-D{d}")
-    if len(set(names)) < len(names):
-        names = [f"S{s}-D{d}-W{w}" for s, d, w in channel_keys]
-    short = None
-    if meta is not None and SHORT_CHANNELS_TAG in meta:
-        short = {n for n in text(meta[SHORT_CHANNELS_TAG][()]).split(";") if n}
-    channels = []
-    for name, (s, d, w) in zip(names, channel_keys, strict=True):
-        dims = min(sources.shape[1], detectors.shape[1])
-        distance = np.linalg.norm(sources[s - 1, :dims] - detectors[d - 1, :dims]) * to_cm
-        separation = round(float(distance), 6)
-        if not 0 < separation <= MAX_SEPARATION_CM:
-            raise InputError(
-                path,
-                f"{probe.name}/detectorPos3D",
-                f"detector {d} 0-{MAX_SEPARATION_CM:g} cm from source {s}",
-                f"{separation:g} cm",
-                hint="check metaDataTags/LengthUnit" if separation else None,
-            )
-        wavelength = float(wavelengths[w - 1])
-        channels.append(
-            Channel(
-                name=name,
-                separation_cm=separation,
-                is_short=(name in short) if short is not None else separation <= short_threshold_cm,
-                wavelength_nm=wavelength if np.isfinite(wavelength) else None,
-            )
-        )
-    return channel_keys, tuple(channels)
 
 
-def _assemble(path, nirs, probe, meta, times, columns, keys, to_cm, to_s, short_threshold_cm):
-    channel_keys, channels = _channels(path, probe, meta, keys, to_cm, short_threshold_cm)
+def _assemble(
+    path, nirs, probe, meta, times, columns, keys, to_cm, to_s, short_threshold_cm, repairs
+):
+    channel_keys, channels = probe_channels(path, probe, meta, keys, to_cm, short_threshold_cm)
     n_times, n_channels = times.size, len(channels)
     flow = np.full((n_times, n_channels), np.nan)
     has_flow = np.zeros(n_channels, dtype=bool)
@@ -358,7 +324,6 @@ def _assemble(path, nirs, probe, meta, times, columns, keys, to_cm, to_s, short_
         )
     parts = [flow] + ([] if lags is None else [g2.reshape(n_times, -1)])
     stacked = np.column_stack(parts + ([] if rate is None else [rate]))
-    repairs: list[dict] = []
     new_times, stacked, rows = clean_times(
         times, stacked, path=str(path), where=where, repairs=repairs
     )

@@ -114,3 +114,18 @@ def test_subject_from_file_name_or_metadata(tmp_path, build):
     assert read_snirf(write_snirf(anonymous, tmp_path / "other.snirf")).subject is None
     named = write_snirf(anonymous, tmp_path / "sub-09_task-cue_dcs.snirf")
     assert read_snirf(named).subject == "sub-09"
+
+
+def test_transposed_data_is_read_with_a_repair(tmp_path, build):
+    """Source: common practice - column-major writers store (n_measurements, n_times)."""
+    from fstats.errors import InputRepairWarning
+
+    recording, path = _written(tmp_path, build)
+    with h5py.File(path, "r+") as f:
+        series = f["/nirs/data1/dataTimeSeries"][()]
+        del f["/nirs/data1/dataTimeSeries"]
+        f["/nirs/data1"].create_dataset("dataTimeSeries", data=series.T)
+    with pytest.warns(InputRepairWarning, match="transposed"):
+        back = read_snirf(path)
+    assert_array_equal(back.flow, recording.flow)
+    assert back.provenance["repairs"][0]["kind"] == "transposed_data"
