@@ -389,6 +389,7 @@ def check_flow_values(
             f"{where(row)}, {where_column(column)}",
             f"{quantity} > 0",
             float(values[row, column]),
+            hint="write samples of failed g2 fits as 'n/a' (missing)",
         )
     low, high = PLAUSIBLE_MEDIAN[flow_unit]
     for column in range(values.shape[1]):
