@@ -1,4 +1,29 @@
-"""Inputs: flow tables, channel sidecars, task timing, SNIRF and cohort folders -> data objects."""
+"""Inputs: flow tables, channel sidecars, task timing, SNIRF and cohort folders -> data objects.
+
+Readers return the frozen dataclasses of :mod:`fstats.inputs.recording` and check their
+files once, here: a bad file raises :class:`fstats.errors.InputError` naming the file and
+the line/column or HDF5 field; safe repairs are logged, raised as
+:class:`fstats.errors.InputRepairWarning` and listed in ``Recording.provenance["repairs"]``
+(see :mod:`fstats.inputs._validate`).
+
+=========================  ==================================================================
+reader                     file
+=========================  ==================================================================
+``read_recording``         any recording, by suffix (``.tsv``/``.csv`` flow table, ``.snirf``)
+``read_flow_table``        ``<stem>_flow.tsv|csv`` + ``_channels.tsv`` [+ ``_events.tsv``,
+                           ``_aux.tsv``] (:mod:`~fstats.inputs.tables`)
+``read_channels``          ``<stem>_channels.tsv`` (:mod:`~fstats.inputs.channels`)
+``read_events``            BIDS ``events.tsv`` (:mod:`~fstats.inputs.events`)
+``read_aux``               ``<stem>_aux.tsv``
+``read_snirf``             ``<stem>_dcs.snirf``, DCS dataTypes 410/401 (:mod:`~fstats.inputs.snirf`)
+``read_participants``      ``participants.tsv`` (:mod:`~fstats.inputs.cohort`)
+``find_recordings``,       a cohort folder: ``participants.tsv`` + ``sub-<label>/`` folders
+``read_cohort``
+=========================  ==================================================================
+
+Writers (``write_flow_table``, ``write_snirf``, ``write_channels``, ``write_events``,
+``write_aux``) write files the readers read back to identical arrays.
+"""
 
 from fstats.inputs.channels import CHANNEL_ROLES, read_channels, write_channels
 from fstats.inputs.cohort import (
