@@ -84,6 +84,7 @@ def _check_every_file_parses(output):
     return n
 
 
+@pytest.mark.slow
 def test_dask_local_cluster_matches_local_processes(tmp_path, cohort):
     """Source: common practice - the scheduler must not change results (same tasks, same code)."""
     from dask.distributed import Client, LocalCluster
@@ -106,11 +107,14 @@ def test_dask_local_cluster_matches_local_processes(tmp_path, cohort):
     assert local.exit_code == 0
 
 
+@pytest.mark.slow
 def test_corrupt_recording_fails_alone(tmp_path, cohort):
-    """Source: common practice - one unreadable recording must not stop the cohort."""
+    """Source: common practice - one unreadable recording must not stop the cohort; the cohort
+    page lists it with its one-line error."""
+    import html
     import shutil
 
-    from fstats.study import run_study
+    from fstats.study import regroup, run_study
 
     copy = tmp_path / "cohort"
     shutil.copytree(cohort, copy)
@@ -119,8 +123,9 @@ def test_corrupt_recording_fails_alone(tmp_path, cohort):
     cells = lines[10].split("\t")
     lines[10] = "\t".join([cells[0], "not-a-number", *cells[2:]])
     flow.write_text("".join(lines))
-    with_pages = hasattr(__import__("fstats.report").report, "cohort_report")
-    outcome = run_study(_study(tmp_path / "run", copy, reports=with_pages), workers=2)
+    # statistics first (subject pages are slow); then the cohort page alone via regroup
+    study = _study(tmp_path / "run", copy, reports=True)
+    outcome = run_study(study, workers=2, reports=False)
     (failure,) = outcome.failures
     assert failure["participant_id"] == "sub-02"
     assert "line 11" in failure["error"] and "\n" not in failure["error"]
@@ -129,9 +134,10 @@ def test_corrupt_recording_fails_alone(tmp_path, cohort):
     assert outcome.group_files and not outcome.group_error
     summary = pd.read_csv(tmp_path / "run" / "out" / "subjects.tsv", sep="\t")
     assert summary.loc[1, "status"] == "failed" and summary.loc[1, "error"] == failure["error"]
-    if with_pages:
-        page = outcome.cohort_page.read_text()
-        assert "sub-02" in page and "line 11" in page
+    regrouped = regroup(study)
+    assert regrouped.failures == outcome.failures and regrouped.exit_code == 1
+    page = html.unescape(regrouped.cohort_page.read_text())
+    assert "sub-02" in page and "line 11" in page and "not-a-number" in page
     _check_every_file_parses(tmp_path / "run" / "out")
 
 
@@ -146,6 +152,7 @@ def _wait_for_marker(folder, process, timeout_s=240.0):
     return False
 
 
+@pytest.mark.slow
 def test_killed_run_resumes_without_recomputing_finished_subjects(tmp_path, cohort):
     """Source: common practice - resume after SIGKILL: done markers written last, atomic renames."""
     study = _study(tmp_path, cohort, workers=1)
