@@ -129,3 +129,45 @@ def test_transposed_data_is_read_with_a_repair(tmp_path, build):
         back = read_snirf(path)
     assert_array_equal(back.flow, recording.flow)
     assert back.provenance["repairs"][0]["kind"] == "transposed_data"
+
+
+def test_file_written_by_hand_with_other_conventions(tmp_path):
+    """Source: SNIRF specification - fixed-length strings, (1,)-shaped integers, 2-D probe."""
+    path = tmp_path / "hand.snirf"
+    times = np.arange(400) / 10.0
+    rng = np.random.default_rng(0)
+    flow = 1e-8 * np.exp(0.05 * rng.standard_normal((400, 2)))
+    with h5py.File(path, "w") as f:
+        f.create_dataset("formatVersion", data=np.bytes_("1.0"))
+        nirs = f.create_group("nirs")
+        meta = nirs.create_group("metaDataTags")
+        meta.create_dataset("LengthUnit", data=np.array([b"mm"]))
+        data = nirs.create_group("data1")
+        data.create_dataset("dataTimeSeries", data=flow)
+        data.create_dataset("time", data=np.array([0.0, 0.1]))
+        for k, detector in ((1, 1), (2, 2)):
+            entry = data.create_group(f"measurementList{k}")
+            entry.create_dataset("sourceIndex", data=np.array([1], dtype=np.int64))
+            entry.create_dataset("detectorIndex", data=np.array([detector], dtype=np.int64))
+            entry.create_dataset("wavelengthIndex", data=np.array([1.0]))
+            entry.create_dataset("dataType", data=np.array([410]))
+        probe = nirs.create_group("probe")
+        probe.create_dataset("wavelengths", data=np.array([850.0]))
+        probe.create_dataset("sourcePos2D", data=np.array([[0.0, 0.0]]))
+        probe.create_dataset("detectorPos2D", data=np.array([[8.0, 6.0], [0.0, 35.0]]))
+        stim = nirs.create_group("stim1")
+        stim.create_dataset("name", data=np.bytes_("tap"))
+        stim.create_dataset("data", data=np.array([12.0, 5.0, 1.0]))  # one event, 1-D
+        aux = nirs.create_group("aux1")
+        aux.create_dataset("name", data=np.bytes_("ppg"))
+        aux.create_dataset("dataTimeSeries", data=np.ones((40, 1)))
+        aux.create_dataset("time", data=np.arange(40) / 1.0)
+    back = read_snirf(path)
+    assert_allclose(back.times_s, times, rtol=1e-12)
+    assert_array_equal(back.flow, flow)
+    assert [(c.name, c.separation_cm, c.is_short, c.wavelength_nm) for c in back.channels] == [
+        ("S1-D1", 1.0, True, 850.0),  # |(8, 6)| = 10 mm
+        ("S1-D2", 3.5, False, 850.0),
+    ]
+    assert back.events.conditions == ("tap",) and back.events.onsets_s.tolist() == [12.0]
+    assert back.aux["ppg"].values.shape == (40,) and back.aux["ppg"].unit == "a.u."
