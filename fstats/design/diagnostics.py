@@ -51,8 +51,16 @@ def condition_number(values: np.ndarray) -> float:
 
 
 def _gram(x: np.ndarray) -> np.ndarray:
-    """X'X without a threaded BLAS call (threaded GEMM stalls on busy shared machines)."""
-    return np.einsum("ij,ik->jk", x, x)
+    """X'X accumulated over blocks of 256 rows.
+
+    Small blocks keep each BLAS call single-threaded: one big threaded GEMM can stall
+    for seconds on a busy shared machine, while the blocked sum costs the same flops.
+    """
+    gram = np.zeros((x.shape[1], x.shape[1]))
+    for start in range(0, x.shape[0], 256):
+        block = x[start : start + 256]
+        gram += block.T @ block
+    return gram
 
 
 def _condition_from_gram(gram: np.ndarray) -> float:
@@ -98,12 +106,29 @@ def variance_inflation(values: np.ndarray, names: tuple[str, ...], kinds: tuple[
 
 
 def _vif_from_gram(gram: np.ndarray, names: list[str], n: int) -> dict:
-    """VIFs from the cross-product matrix of [1, X] (column 0 the constant)."""
+    """VIFs from the cross-product matrix of [1, X] (column 0 the constant).
+
+    With every column varying and the centred correlation matrix R well conditioned,
+    VIF_j = (R^-1)_jj (one Cholesky inversion); otherwise column by column from R².
+    """
+    means = gram[0, 1:] / n
+    centred = gram[1:, 1:] - n * np.outer(means, means)
+    variances = np.diag(centred)
+    if np.all(variances > 1e-12 * np.maximum(np.diag(gram)[1:], 1e-300)):
+        scale = 1.0 / np.sqrt(variances)
+        corr = centred * np.outer(scale, scale)
+        try:
+            chol = np.linalg.cholesky(corr)
+            if np.min(np.diag(chol)) ** 2 > 1e-10:
+                inv_chol = np.linalg.inv(chol)
+                vifs = np.sum(inv_chol**2, axis=0)  # diag(R^-1) = column norms of L^-1
+                return {name: float(v) for name, v in zip(names, vifs, strict=True)}
+        except np.linalg.LinAlgError:
+            pass
     out = {}
     p = gram.shape[0]
     for j in range(1, p):
-        mean = gram[0, j] / n
-        total = gram[j, j] - n * mean**2
+        total = variances[j - 1]
         if total <= 1e-12 * max(gram[j, j], 1e-300):
             out[names[j - 1]] = float("inf")
             continue

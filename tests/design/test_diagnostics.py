@@ -134,3 +134,16 @@ def test_table_and_image():
     assert image.values.shape == d.values.shape
     assert_allclose(np.abs(image.values).max(axis=0), 1.0)
     assert image.kinds == d.kinds
+
+
+def test_vif_infinite_for_constant_or_duplicated_columns():
+    """Source: closed form - R² = 1 for an exact copy, so VIF = 1/(1-R²) is infinite; a
+    column without variance has no defined VIF (reported as inf)."""
+    x = _matrix(4)
+    x = np.column_stack([x, x[:, 0], np.full(x.shape[0], 2.0)])
+    names = ("a", "b", "constant", "c", "d", "a_copy", "flat")
+    kinds = ("task", "task", "constant", "drift", "short", "short", "aux")
+    vif = variance_inflation(x, names, kinds)
+    assert vif["a_copy"] == np.inf and vif["flat"] == np.inf
+    assert np.isfinite(vif["c"])
+    assert_allclose(vif["c"], variance_inflation_factor(x[:, :5], 3), rtol=1e-6)
