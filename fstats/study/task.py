@@ -222,10 +222,18 @@ def analyse_subject(task: SubjectTask) -> SubjectOutcome:
         fit = glm.fit(recording, design, channels=task.long_channels)
     provenance = dict(task.provenance)
     provenance["inputs"] = dict(task.inputs)
+    if hasattr(spec, "model_dump"):  # the design as declared, beside its path and hash
+        provenance["design"] = {
+            **dict(provenance.get("design", {})),
+            "declared": spec.model_dump(mode="json"),
+        }
     provenance["options"] = {**design_options, **task.fit_options}
     with clock("write"):
         tsv_path, json_path = write_subject_results(fit, work_dir, task.stem, provenance=provenance)
     files = {"results": Path(tsv_path).name, "sidecar": Path(json_path).name}
+    courses = work_dir / f"{task.stem}_timecourses.tsv"  # written beside them by the fit stage
+    if courses.is_file():
+        files["timecourses"] = courses.name
     if task.reports:
         from fstats.report import subject_report
 
