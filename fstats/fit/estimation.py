@@ -1,0 +1,251 @@
+"""One channel's GLM: OLS, iterated AR(p) prewhitening, and AR-IRLS (pure arrays in, arrays out)."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from fstats.fit.autoregressive import fit_ar, whiten, whitened_rows
+from fstats.fit.covariance import SpectralCovariance, spectral_sandwich
+from fstats.fit.ols import design_rank, ordinary_least_squares
+from fstats.fit.robust import TUKEY_C, irls, weighted_least_squares
+
+__all__ = ["METHODS", "ChannelEstimate", "ChannelFitError", "estimate_channel"]
+
+#: Fit methods: ordinary least squares, AR(p) prewhitening, AR prewhitening + robust IRLS.
+METHODS: tuple[str, ...] = ("ols", "ar", "ar-irls")
+
+
+class ChannelFitError(ValueError):
+    """A channel cannot be fitted; the message is a one-line reason for the results table."""
+
+
+@dataclass(frozen=True, eq=False)
+class ChannelEstimate:
+    """Raw estimation output for one channel (see :class:`fstats.fit.glm.ChannelFit`).
+
+    Parameters
+    ----------
+    betas : ndarray, shape (k,)
+        Coefficients (flow unit per regressor unit).
+    cov : ndarray, shape (k, k)
+        Coefficient covariance.
+    dof : float
+        Effective residual degrees of freedom.
+    ar_coefs : ndarray, shape (p,)
+        Final AR coefficients (empty for OLS).
+    fitted : ndarray, shape (n_times,)
+        ``X β`` (NaN on excluded rows).
+    residuals : ndarray, shape (n_times,)
+        ``y - X β`` (NaN on excluded rows).
+    whitened_residuals : ndarray, shape (n_times,)
+        Residuals of the whitened regression (NaN on rows dropped by whitening).
+    weights : ndarray, shape (n_times,)
+        Robust weights (1 for OLS/AR; NaN on rows not in the final regression).
+    scale : float
+        Residual scale of the final regression (flow unit).
+    n_used : int
+        Rows in the final regression.
+    n_iter : int
+        AR iterations used (0 for OLS).
+    converged : bool
+        Whether the AR / IRLS iterations settled.
+    ar_order_bic : ndarray
+        BIC curve of the last AR order search (empty for OLS).
+    spectral : SpectralCovariance or None
+        The frequency-domain sandwich behind ``cov`` (None for model-based covariance);
+        gives per-contrast Satterthwaite degrees of freedom.
+    """
+
+    betas: np.ndarray
+    cov: np.ndarray
+    dof: float
+    ar_coefs: np.ndarray
+    fitted: np.ndarray
+    residuals: np.ndarray
+    whitened_residuals: np.ndarray
+    weights: np.ndarray
+    scale: float
+    n_used: int
+    n_iter: int
+    converged: bool
+    ar_order_bic: np.ndarray
+    spectral: SpectralCovariance | None = None
+
+    def contrast_dof(self, weights: np.ndarray) -> float:
+        """Effective degrees of freedom of a contrast row ``weights`` (shape (k,))."""
+        if self.spectral is None:
+            return self.dof
+        return self.spectral.contrast_dof(weights)
+
+
+def _check_inputs(flow: np.ndarray, design: np.ndarray) -> np.ndarray:
+    valid = np.isfinite(flow) & np.isfinite(design).all(axis=1)
+    n_valid = int(valid.sum())
+    k = design.shape[1]
+    if n_valid == 0:
+        raise ChannelFitError("no valid samples (all NaN)")
+    if n_valid <= k:
+        raise ChannelFitError(f"{n_valid} valid samples for {k} regressors")
+    if np.ptp(flow[valid]) == 0:
+        raise ChannelFitError("constant flow (zero variance)")
+    rank = design_rank(design[valid])
+    if rank < k:
+        raise ChannelFitError(f"design is rank deficient (rank {rank} < {k} columns)")
+    return valid
+
+
+def estimate_channel(
+    flow: np.ndarray,
+    design: np.ndarray,
+    *,
+    method: str = "ar-irls",
+    max_ar_order: int = 80,
+    ar_order: int | None = None,
+    ar_estimator: str = "mle",
+    max_iter: int = 10,
+    tol: float = 1e-5,
+    tukey_c: float = TUKEY_C,
+    covariance: str = "spectral",
+    smoothing_hz: float = 0.005,
+    sfreq_hz: float = 20.0,
+) -> ChannelEstimate:
+    """Fit one channel's flow to a design matrix.
+
+    Parameters
+    ----------
+    flow : ndarray, shape (n_times,)
+        Flow (cm²/s or relative); NaN marks missing samples, whose rows are excluded.
+    design : ndarray, shape (n_times, k)
+        Design matrix; rows with NaN are excluded too.
+    method : {"ols", "ar", "ar-irls"}, default="ar-irls"
+        Ordinary least squares; iterated AR(p) prewhitening; AR prewhitening with
+        Tukey-bisquare IRLS (Barker, Aarabi & Huppert 2013).
+    max_ar_order : int, default=80
+        Largest AR order for the BIC search (4 s of samples at 20 Hz).
+    ar_order : int, optional
+        A fixed AR order instead of the BIC search.
+    ar_estimator : {"mle", "adjusted"}, default="mle"
+        Yule-Walker autocovariance normalisation (``"adjusted"`` reproduces
+        statsmodels ``yule_walker``'s default, used by GLSAR).
+    max_iter : int, default=10
+        Largest number of AR re-estimation rounds.
+    tol : float, default=1e-5
+        Stop when the fitted values change by less than ``tol`` times the residual norm.
+    tukey_c : float, default=4.685
+        Bisquare tuning constant.
+
+    Returns
+    -------
+    ChannelEstimate
+
+    Raises
+    ------
+    ChannelFitError
+        All-NaN or constant flow, fewer samples than regressors, rank-deficient design.
+
+    Notes
+    -----
+    AR modes start from OLS, then repeat: residuals ``r = y - Xβ`` on the original
+    scale → AR(p) by Yule-Walker with p chosen by BIC (or fixed) → whiten y and X →
+    OLS (``"ar"``) or bisquare IRLS (``"ar-irls"``) on the whitened rows.  The
+    covariance is ``s² (X̃'WX̃)^-1`` with ``s² = Σ w ẽ² / (Σ w - k)`` and the effective
+    degrees of freedom are ``Σ w - k`` (``W = I`` without robust weighting), computed
+    on the whitened rows.
+    """
+    if method not in METHODS:
+        raise ValueError(f"method must be one of {METHODS}, not {method!r}")
+    flow = np.asarray(flow, dtype=float)
+    design = np.asarray(design, dtype=float)
+    valid = _check_inputs(flow, design)
+    n_times, k = design.shape
+    y, x = flow[valid], design[valid]
+    ols = ordinary_least_squares(y, x)
+    betas = ols.betas[:, 0]
+    nan = np.full(n_times, np.nan)
+    if method == "ols":
+        fitted = _masked(design, betas, valid)
+        resid = np.where(valid, flow - fitted, np.nan)
+        return ChannelEstimate(
+            betas=betas,
+            cov=ols.cov[0],
+            dof=float(ols.dof),
+            ar_coefs=np.zeros(0),
+            fitted=fitted,
+            residuals=resid,
+            whitened_residuals=resid.copy(),
+            weights=np.where(valid, 1.0, np.nan),
+            scale=float(np.sqrt(ols.residual_var[0])),
+            n_used=int(valid.sum()),
+            n_iter=0,
+            converged=True,
+            ar_order_bic=np.zeros(0),
+        )
+    flow0 = np.where(valid, flow, 0.0)
+    design0 = np.where(valid[:, None], design, 0.0)
+    converged = False
+    weights_w = None
+    ar = None
+    n_iter = 0
+    for step in range(1, max_iter + 1):
+        n_iter = step
+        resid = np.where(valid, flow0 - design0 @ betas, np.nan)
+        ar = fit_ar(resid, max_ar_order, order=ar_order, method=ar_estimator)
+        kept = whitened_rows(valid, ar.order)
+        if kept.sum() <= k:
+            raise ChannelFitError(f"too few samples left after AR({ar.order}) whitening")
+        yw = whiten(flow0, ar.coefs, valid)
+        xw = whiten(design0, ar.coefs, valid)
+        if method == "ar-irls":
+            fit = irls(yw, xw, c=tukey_c, betas=betas)
+            new, weights_w = fit.betas, fit.weights
+        else:
+            new, _ = weighted_least_squares(yw, xw)
+            weights_w = np.ones(yw.shape[0])
+        change = np.linalg.norm(x @ (new - betas)) / max(np.linalg.norm(y - x @ new), 1e-300)
+        betas = new
+        if change < tol:
+            converged = True
+            break
+    xtwx_inv = weighted_least_squares(yw, xw, weights_w)[1]
+    ew = yw - xw @ betas
+    sum_w = float(weights_w.sum())
+    dof = sum_w - k
+    if not dof > 0:
+        raise ChannelFitError("no residual degrees of freedom left after robust weighting")
+    s2 = float(np.sum(weights_w * ew * ew) / dof)
+    cov = s2 * xtwx_inv
+    spectral = None
+    if covariance == "spectral":
+        bins = max(1, int(round(smoothing_hz * yw.shape[0] / sfreq_hz)))
+        spectral = spectral_sandwich(xw, ew, weights_w, xtwx_inv, smoothing_bins=bins)
+        cov = spectral.cov
+    fitted = _masked(design, betas, valid)
+    resid = np.where(valid, flow - fitted, np.nan)
+    white = nan.copy()
+    white[kept] = ew
+    weights = nan.copy()
+    weights[kept] = weights_w
+    return ChannelEstimate(
+        betas=betas,
+        cov=cov,
+        dof=dof,
+        ar_coefs=ar.coefs,
+        fitted=fitted,
+        residuals=resid,
+        whitened_residuals=white,
+        weights=weights,
+        scale=float(np.sqrt(s2)),
+        n_used=int(kept.sum()),
+        n_iter=n_iter,
+        converged=converged,
+        ar_order_bic=ar.bic,
+        spectral=spectral,
+    )
+
+
+def _masked(design: np.ndarray, betas: np.ndarray, valid: np.ndarray) -> np.ndarray:
+    out = np.full(design.shape[0], np.nan)
+    out[valid] = design[valid] @ betas
+    return out

@@ -1,0 +1,395 @@
+"""Subject-level GLM: fit a design matrix to every channel of a recording.
+
+:class:`SubjectGLM` holds the settings, :meth:`SubjectGLM.fit` returns a
+:class:`SubjectFit` with one :class:`ChannelFit` (or :class:`ChannelFailure`) per
+channel, the tidy results table and the block-averaged time courses.
+"""
+
+from __future__ import annotations
+
+import logging
+import warnings
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from fstats.design.matrix import DesignMatrix
+from fstats.errors import FitWarning, InputError, suggest
+from fstats.fit.autoregressive import default_max_ar_order
+from fstats.fit.diagnostics import acf, durbin_watson, ljung_box, r_squared, variance_share
+from fstats.fit.estimation import METHODS, ChannelEstimate, ChannelFitError, estimate_channel
+from fstats.fit.inference import TermTest, f_test, t_test
+from fstats.fit.robust import TUKEY_C
+from fstats.inputs.recording import Recording
+
+__all__ = ["COVARIANCES", "SubjectGLM", "ChannelFit", "ChannelFailure", "SubjectFit"]
+
+logger = logging.getLogger(__name__)
+
+#: Coefficient covariance estimators: the frequency-domain sandwich on the
+#: prewhitened data (default) or the model-based ``s² (X̃'WX̃)^-1``.
+COVARIANCES: tuple[str, ...] = ("spectral", "model")
+
+
+@dataclass(frozen=True, eq=False)
+class ChannelFit:
+    """One channel's fitted GLM.
+
+    Parameters
+    ----------
+    channel : str
+        Channel name.
+    separation_cm : float
+        Source-detector separation in cm.
+    is_short : bool
+        Short-separation channel (fitted without its own short-channel columns).
+    names, kinds : tuple of str
+        Regressor names and kinds of the columns actually fitted.
+    conditions : dict of str to tuple of str
+        Task condition → its columns (restricted to the fitted columns).
+    estimate : ChannelEstimate
+        Arrays from the estimation: betas, cov, dof, ar_coefs, fitted (n_times,),
+        residuals, whitened_residuals, weights (n_times,).
+    baseline_flow : float
+        Baseline flow for percent change (flow unit): the mean over the fitted samples
+        of the model prediction with every task column set to zero.
+    diagnostics : dict
+        ``r2``, ``durbin_watson`` (before/after whitening), ``ljung_box_p``,
+        ``acf_before``, ``acf_after`` (lags 0..n), ``acf_lags_s``, ``short_share``,
+        ``converged``, ``n_iter``, ``n_used``, ``downweighted_fraction``.
+    """
+
+    channel: str
+    separation_cm: float
+    is_short: bool
+    names: tuple[str, ...]
+    kinds: tuple[str, ...]
+    conditions: dict[str, tuple[str, ...]]
+    estimate: ChannelEstimate
+    baseline_flow: float
+    diagnostics: dict = field(default_factory=dict)
+
+    betas = property(lambda self: self.estimate.betas, doc="Coefficients, shape (k,).")
+    cov = property(lambda self: self.estimate.cov, doc="Coefficient covariance, shape (k, k).")
+    dof = property(lambda self: self.estimate.dof, doc="Model residual degrees of freedom.")
+    ar_coefs = property(lambda self: self.estimate.ar_coefs, doc="AR coefficients, shape (p,).")
+    fitted = property(lambda self: self.estimate.fitted, doc="Fitted flow, shape (n_times,).")
+    residuals = property(lambda self: self.estimate.residuals, doc="Residuals, (n_times,).")
+    whitened_residuals = property(
+        lambda self: self.estimate.whitened_residuals, doc="Whitened residuals, (n_times,)."
+    )
+    weights = property(lambda self: self.estimate.weights, doc="Robust weights, (n_times,).")
+
+    @property
+    def ar_order(self) -> int:
+        """Order of the final AR noise model (0 for OLS)."""
+        return int(self.estimate.ar_coefs.size)
+
+    @property
+    def se(self) -> np.ndarray:
+        """Standard errors, shape (k,)."""
+        return np.sqrt(np.diag(self.estimate.cov))
+
+    @property
+    def t(self) -> np.ndarray:
+        """t values of the regressors, shape (k,)."""
+        return self.betas / self.se
+
+    @property
+    def p(self) -> np.ndarray:
+        """Two-sided p-values of the regressors, shape (k,)."""
+        return np.array([self.test(np.eye(len(self.names))[j]).p for j in range(len(self.names))])
+
+    def test(self, weights: np.ndarray, kind: str = "t", *, alpha: float = 0.05) -> TermTest:
+        """t test of a contrast row (shape (k,)) or F test of rows (shape (q, k))."""
+        w = np.asarray(weights, dtype=float)
+        if kind == "F":
+            w = np.atleast_2d(w)
+            dof = min(self.estimate.contrast_dof(row) for row in w)
+            return f_test(self.betas, self.cov, w, dof)
+        return t_test(self.betas, self.cov, w, self.estimate.contrast_dof(w), alpha=alpha)
+
+
+@dataclass(frozen=True, eq=False)
+class ChannelFailure:
+    """A channel that could not be fitted, with a one-line reason."""
+
+    channel: str
+    separation_cm: float
+    is_short: bool
+    reason: str
+
+
+@dataclass(frozen=True, eq=False)
+class SubjectFit:
+    """All channels of one recording, fitted with one :class:`SubjectGLM`.
+
+    Parameters
+    ----------
+    model : SubjectGLM
+        The settings used.
+    recording_source, subject, session : str, str or None, str or None
+        Where the recording came from.
+    design : DesignMatrix
+        The design that was fitted.
+    flow_unit : str
+        Unit of the flow (``"cm2/s"`` or ``"relative"``).
+    channel_fits : dict of str to ChannelFit or ChannelFailure
+        In recording channel order.
+    block_averages : pandas.DataFrame
+        Columns ``condition, channel, source ("model"|"epochs"), time_s, mean_pct,
+        ci_low_pct, ci_high_pct`` (see :mod:`fstats.fit.block_average`).
+    """
+
+    model: SubjectGLM
+    recording_source: str
+    subject: str | None
+    session: str | None
+    design: DesignMatrix
+    flow_unit: str
+    channel_fits: dict[str, ChannelFit | ChannelFailure]
+    block_averages: pd.DataFrame
+
+    def table(self) -> pd.DataFrame:
+        """Tidy results, one row per channel × regressor or contrast (CONTRACTS §5 columns)."""
+        from fstats.fit.results import results_table
+
+        return results_table(self)
+
+
+@dataclass(frozen=True, eq=False)
+class SubjectGLM:
+    """How to fit a subject's channels (settings only).
+
+    Parameters
+    ----------
+    method : {"ar-irls", "ar", "ols"}, default="ar-irls"
+        AR(p) prewhitening with Tukey-bisquare IRLS (Barker, Aarabi & Huppert 2013);
+        AR(p) prewhitening alone; ordinary least squares (reference only: its
+        p-values are far too small for serially correlated flow).
+    max_ar_order : int or None, default=None
+        Largest AR order of the BIC search; None = 4 s of samples (80 at 20 Hz).
+    ar_order : int or None, default=None
+        Fix the AR order instead of searching.
+    covariance : {"spectral", "model"}, default="spectral"
+        Frequency-domain sandwich with Satterthwaite df (see
+        :mod:`fstats.fit.covariance`), or the model-based ``s² (X̃'WX̃)^-1``.
+    smoothing_hz : float, default=0.005
+        Half-width of the periodogram smoother of the spectral covariance, in Hz.
+    max_iter : int, default=10
+        Largest number of AR re-estimation rounds.
+    tol : float, default=1e-5
+        Convergence tolerance (relative change of the fitted values).
+    tukey_c : float, default=4.685
+        Bisquare tuning constant.
+    alpha : float, default=0.05
+        Confidence intervals are ``1 - alpha``.
+    block_averages : bool, default=True
+        Compute block-averaged time courses (model FIR and epochs).
+    fir_bin_s : float, default=1.0
+        FIR bin width (s) of the internal FIR refit.
+    post_s : float, default=15.0
+        Time after the end of the longest event covered by the time courses (s).
+    pre_s : float, default=5.0
+        Pre-onset baseline of the epoch averages (s).
+    """
+
+    method: str = "ar-irls"
+    max_ar_order: int | None = None
+    ar_order: int | None = None
+    covariance: str = "spectral"
+    smoothing_hz: float = 0.005
+    max_iter: int = 10
+    tol: float = 1e-5
+    tukey_c: float = TUKEY_C
+    alpha: float = 0.05
+    block_averages: bool = True
+    fir_bin_s: float = 1.0
+    post_s: float = 15.0
+    pre_s: float = 5.0
+
+    def __post_init__(self) -> None:
+        if self.method not in METHODS:
+            raise InputError(
+                "fit options",
+                "method",
+                f"one of {', '.join(METHODS)}",
+                self.method,
+                hint=suggest(self.method, METHODS),
+            )
+        if self.covariance not in COVARIANCES:
+            raise InputError(
+                "fit options",
+                "covariance",
+                f"one of {', '.join(COVARIANCES)}",
+                self.covariance,
+                hint=suggest(self.covariance, COVARIANCES),
+            )
+        for name in ("max_ar_order", "ar_order"):
+            value = getattr(self, name)
+            if value is not None and (int(value) != value or value < 0):
+                raise InputError("fit options", name, "a whole number >= 0", value)
+
+    def options(self) -> dict:
+        """The settings as a plain dict (for provenance)."""
+        return asdict(self)
+
+    def fit(
+        self,
+        recording: Recording,
+        design: DesignMatrix,
+        *,
+        channels: tuple[str, ...] | list[str] | None = None,
+    ) -> SubjectFit:
+        """Fit the design to each channel.
+
+        Parameters
+        ----------
+        recording : Recording
+            Flow (n_times, n_channels) in cm²/s or relative units.
+        design : DesignMatrix
+            On the recording's time base (same n_times).
+        channels : sequence of str, optional
+            Channels to fit (default: all, in recording order).
+
+        Returns
+        -------
+        SubjectFit
+
+        Raises
+        ------
+        InputError
+            Design and recording lengths differ, or an unknown channel is requested.
+        """
+        source = recording.source or "recording"
+        if design.values.shape[0] != recording.n_times:
+            raise InputError(
+                source,
+                "design matrix rows",
+                f"{recording.n_times} rows (one per sample)",
+                design.values.shape[0],
+                hint="build the design on this recording's time base",
+            )
+        names = recording.channel_names
+        wanted = tuple(channels) if channels is not None else names
+        for name in wanted:
+            if name not in names:
+                raise InputError(
+                    source,
+                    "channels",
+                    f"one of {', '.join(names)}",
+                    name,
+                    hint=suggest(name, names),
+                )
+        sfreq = recording.sfreq_hz
+        max_order = self.max_ar_order
+        if max_order is None:
+            max_order = default_max_ar_order(sfreq)
+        fits: dict[str, ChannelFit | ChannelFailure] = {}
+        for name in wanted:
+            channel = recording.channels[recording.channel_index(name)]
+            try:
+                fits[name] = self._fit_channel(recording, design, channel, max_order, sfreq)
+            except ChannelFitError as exc:
+                reason = str(exc)
+                warnings.warn(f"channel {name!r} not fitted: {reason}", FitWarning, stacklevel=2)
+                fits[name] = ChannelFailure(name, channel.separation_cm, channel.is_short, reason)
+        logger.info(
+            "fitted %d of %d channels (%s)",
+            sum(isinstance(f, ChannelFit) for f in fits.values()),
+            len(fits),
+            self.method,
+        )
+        averages = pd.DataFrame(
+            columns=[
+                "condition",
+                "channel",
+                "source",
+                "time_s",
+                "mean_pct",
+                "ci_low_pct",
+                "ci_high_pct",
+            ]
+        )
+        if self.block_averages and recording.events is not None or design.conditions:
+            if self.block_averages:
+                from fstats.fit.block_average import block_averages
+
+                averages = block_averages(self, recording, design, fits)
+        return SubjectFit(
+            model=self,
+            recording_source=recording.source,
+            subject=recording.subject,
+            session=recording.session,
+            design=design,
+            flow_unit=recording.flow_unit,
+            channel_fits=fits,
+            block_averages=averages,
+        )
+
+    def _fit_channel(self, recording, design, channel, max_order, sfreq) -> ChannelFit:
+        values = design.for_channel(channel.name)
+        keep = [
+            i for i, kind in enumerate(design.kinds) if not (channel.is_short and kind == "short")
+        ]
+        x = values[:, keep]
+        col_names = tuple(design.names[i] for i in keep)
+        col_kinds = tuple(design.kinds[i] for i in keep)
+        flow = recording.channel_flow(channel.name)
+        est = estimate_channel(
+            flow,
+            x,
+            method=self.method,
+            max_ar_order=max_order,
+            ar_order=self.ar_order,
+            max_iter=self.max_iter,
+            tol=self.tol,
+            tukey_c=self.tukey_c,
+            covariance=self.covariance if self.method != "ols" else "model",
+            smoothing_hz=self.smoothing_hz,
+            sfreq_hz=sfreq,
+        )
+        if not est.converged:
+            warnings.warn(
+                f"channel {channel.name!r}: {self.method} fit did not settle in "
+                f"{est.n_iter} iterations",
+                FitWarning,
+                stacklevel=3,
+            )
+        task = np.array([k == "task" for k in col_kinds])
+        valid = np.isfinite(est.fitted)
+        baseline = float(np.mean(x[valid][:, ~task] @ est.betas[~task])) if valid.any() else np.nan
+        short = np.array([k == "short" for k in col_kinds])
+        short_part = x[:, short] @ est.betas[short] if short.any() else None
+        max_lag = int(min(round(2.0 * sfreq), max(1, valid.sum() // 4)))
+        white = est.whitened_residuals
+        diagnostics = {
+            "r2": r_squared(flow, est.fitted),
+            "durbin_watson_before": durbin_watson(est.residuals),
+            "durbin_watson": durbin_watson(white),
+            "ljung_box_p": ljung_box(white, min(20, max_lag), n_params=0)[1],
+            "acf_lags_s": np.arange(max_lag + 1) / sfreq,
+            "acf_before": acf(est.residuals, max_lag),
+            "acf_after": acf(white, max_lag),
+            "short_share": variance_share(flow, short_part) if short_part is not None else np.nan,
+            "converged": est.converged,
+            "n_iter": est.n_iter,
+            "n_used": est.n_used,
+            "downweighted_fraction": float(np.nanmean(est.weights < 0.5)),
+        }
+        conditions = {
+            cond: tuple(c for c in cols if c in col_names)
+            for cond, cols in design.conditions.items()
+        }
+        return ChannelFit(
+            channel=channel.name,
+            separation_cm=float(channel.separation_cm),
+            is_short=bool(channel.is_short),
+            names=col_names,
+            kinds=col_kinds,
+            conditions=conditions,
+            estimate=est,
+            baseline_flow=baseline,
+            diagnostics=diagnostics,
+        )
