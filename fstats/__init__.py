@@ -9,8 +9,18 @@ regulation and licensed practice.
 """
 
 from fstats.errors import InputError
+from fstats.inputs import read_cohort, read_recording
 from fstats.inputs.recording import AuxSignal, Channel, Recording, TaskTiming
 
 __version__ = "0.1.0"
 
-__all__ = ["__version__", "InputError", "Recording", "Channel", "TaskTiming", "AuxSignal"]
+__all__ = [
+    "__version__",
+    "InputError",
+    "Recording",
+    "Channel",
+    "TaskTiming",
+    "AuxSignal",
+    "read_recording",
+    "read_cohort",
+]

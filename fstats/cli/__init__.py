@@ -15,7 +15,9 @@ import logging
 import sys
 from collections.abc import Sequence
 
-from fstats.errors import InputError
+import warnings
+
+from fstats.errors import InputError, InputRepairWarning
 
 __all__ = ["main", "build_parser", "COMMAND_MODULES"]
 
@@ -50,7 +52,9 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"fstats {__version__}")
     verbosity = parser.add_mutually_exclusive_group()
     verbosity.add_argument("-v", "--verbose", action="store_true", help="log debug messages")
-    verbosity.add_argument("-q", "--quiet", action="store_true", help="log warnings and errors only")
+    verbosity.add_argument(
+        "-q", "--quiet", action="store_true", help="log warnings and errors only"
+    )
     subparsers = parser.add_subparsers(dest="command", metavar="COMMAND")
     for module_name in COMMAND_MODULES:
         try:
@@ -72,6 +76,8 @@ def _setup_logging(verbose: bool, quiet: bool) -> None:
     root.setLevel(level)
     root.propagate = False
     logging.captureWarnings(True)
+    # the inputs stage logs every repair itself; don't show it a second time as a warning
+    warnings.filterwarnings("ignore", category=InputRepairWarning)
     warnings_logger = logging.getLogger("py.warnings")
     warnings_logger.handlers[:] = [handler]
     warnings_logger.propagate = False

@@ -88,7 +88,7 @@ class TaskTiming:
         return TaskTiming(
             onsets_s=self.onsets_s[keep],
             durations_s=self.durations_s[keep],
-            conditions=tuple(c for c, k in zip(self.conditions, keep) if k),
+            conditions=tuple(c for c, k in zip(self.conditions, keep, strict=True) if k),
             amplitudes=self.amplitudes[keep],
             source=self.source,
         )
