@@ -13,9 +13,8 @@ import argparse
 import importlib
 import logging
 import sys
-from collections.abc import Sequence
-
 import warnings
+from collections.abc import Sequence
 
 from fstats.errors import InputError, InputRepairWarning
 
