@@ -30,7 +30,7 @@ RESPONSE_MODELS: tuple[str, ...] = ("flow", "gamma_variate", "glover", "canonica
 #: Peak time (s) of the default flow response: a gamma variate peaking 1 s before the
 #: canonical double gamma (5.0 s), since CBF leads BOLD by about 1 s (see notes).
 FLOW_PEAK_S: float = 4.0
-#: Gamma shape of the default flow response (FWHM of a 1-s response about 5.4 s).
+#: Gamma shape of the default flow response (FWHM of a 1-s response about 5.5 s).
 FLOW_SHAPE: float = 4.0
 
 
