@@ -116,11 +116,11 @@ def screen_curves(
     count_rate_hz : ndarray, shape (n_curves,), optional
         Photon count rate in counts/s; zero or negative blocks the curve.
     min_excess : float, default=0.0
-        g2 - 1 averaged over the first half of the fitted lags must exceed this, else
+        g2 - 1 averaged over the first quarter of the fitted lags must exceed this, else
         the curve is "g2 below 1" (no correlation left, or a wrongly normalised curve).
     max_tail_ratio : float, default=0.5
         The mean of g2 - 1 over the last quarter of the fitted lags, divided by the
-        mean over the first half, must stay below this, else "non-decaying g2".
+        mean over the first quarter, must stay below this, else "non-decaying g2".
     n_edge : int, default=3
         Least number of lags averaged at either end.
 
@@ -142,12 +142,11 @@ def screen_curves(
     open_ = ~(wrong | nonfinite)
 
     excess = np.where(mask, g2 - 1.0, np.nan)
-    # head: first half of the fitted lags; tail: last quarter (means).  Both
-    # average many lags, because the first lags of a correlator (smallest bins) carry
-    # the most photon noise.
+    # head: first quarter of the fitted lags; tail: last quarter (means).  Both
+    # average many lags, because single lags of a correlator carry much photon noise.
     order = np.cumsum(mask, axis=1)
     count = mask.sum(axis=1, keepdims=True)
-    head = mask & (order <= np.maximum(count // 2, n_edge))
+    head = mask & (order <= np.maximum(count // 4, n_edge))
     tail = mask & (order > count - np.maximum(count // 4, n_edge))
     head &= open_[:, None]
     tail &= open_[:, None]
