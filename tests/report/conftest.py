@@ -286,3 +286,36 @@ def console_problems(stderr: str) -> list[str]:
 def case_factory():
     """``make_case`` itself, for tests that need their own condition names or seeds."""
     return make_case
+
+
+XSS = "<script>alert(1)</script>"
+#: A second hostile name that would leave a visible mark in the DOM if it ever ran.
+XSS_MARK = "<img src=x onerror=\"document.body.setAttribute('data-owned','1')\">"
+
+
+@pytest.fixture(scope="session")
+def subject_page(case, tmp_path_factory):
+    """The subject page of ``case``, written once per session, with provenance."""
+    from fstats.report import subject_report
+
+    recording, design, fit = case
+    out = tmp_path_factory.mktemp("subject") / "sub-01_task-subtract.html"
+    prov = {
+        "fstats_version": "0.1.0",
+        "created": "2026-01-01T00:00:00Z",
+        "inputs": {"sub-01_task-subtract_flow.tsv": "ab" * 32},
+        "options": {"method": "ols"},
+    }
+    flow_before = recording.flow.copy()
+    path = subject_report(recording, design, fit, out, provenance=prov)
+    assert np.array_equal(recording.flow, flow_before)  # inputs left alone
+    return path
+
+
+@pytest.fixture(scope="session")
+def hostile_page(tmp_path_factory):
+    """A subject page whose conditions are named like script injections."""
+    from fstats.report import subject_report
+
+    recording, design, fit = make_case(conditions=(XSS, XSS_MARK + " & co"), duration_s=120.0)
+    return subject_report(recording, design, fit, tmp_path_factory.mktemp("hostile") / "x.html")

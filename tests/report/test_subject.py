@@ -3,12 +3,11 @@
 import html.parser
 import re
 
-import numpy as np
 import pytest
 
-from fstats.report import CAUTION, SUBJECT_SECTIONS, subject_report
+from fstats.report import CAUTION, SUBJECT_SECTIONS
 
-XSS = "<script>alert(1)</script>"
+XSS = "<script>alert(1)</script>"  # also in conftest
 
 
 class _Collector(html.parser.HTMLParser):
@@ -36,19 +35,8 @@ def _parse(text):
 
 
 @pytest.fixture(scope="module")
-def page(case, tmp_path_factory):
-    recording, design, fit = case
-    out = tmp_path_factory.mktemp("subject") / "sub-01_task-subtract.html"
-    prov = {
-        "fstats_version": "0.1.0",
-        "created": "2026-01-01T00:00:00Z",
-        "inputs": {"sub-01_task-subtract_flow.tsv": "ab" * 32},
-        "options": {"method": "ols"},
-    }
-    flow_before = recording.flow.copy()
-    path = subject_report(recording, design, fit, out, provenance=prov)
-    assert np.array_equal(recording.flow, flow_before)  # inputs left alone
-    return path
+def page(subject_page):
+    return subject_page
 
 
 def test_page_has_every_section_and_figure(page):
@@ -127,16 +115,16 @@ def test_provenance_footer_and_caution(page):
     assert re.search(r"\d{4}-\d{2}-\d{2} \d{2}:\d{2} UTC", footer)
 
 
-def test_condition_and_channel_names_are_escaped(case_factory, tmp_path):
+def test_condition_and_channel_names_are_escaped(hostile_page):
     """Source: OWASP XSS prevention (HTML entity encoding of untrusted data) - a
     condition named <script>alert(1)</script> shows as text, never as a tag."""
-    recording, design, fit = case_factory(conditions=(XSS, "recover & rest"), duration_s=120.0)
-    path = subject_report(recording, design, fit, tmp_path / "x.html")
-    text = path.read_text(encoding="utf-8")
+    text = hostile_page.read_text(encoding="utf-8")
     assert XSS not in text
     assert "&lt;script&gt;alert(1)&lt;/script&gt;" in text
-    assert "recover &amp; rest" in text
-    assert "script" not in _parse(text).tags
+    assert "&lt;img src=x onerror=" in text and " &amp; co" in text
+    parsed = _parse(text)
+    assert "script" not in parsed.tags
+    assert all(src.startswith("data:image/png;base64,") for src in parsed.images)
 
 
 def test_figure_folder_swap_replaces_old_figures(tmp_path):
