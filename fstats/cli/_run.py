@@ -115,7 +115,8 @@ class _Bars:
 
         bar = self._bars.get(event.stage)
         if bar is None:
-            bar = tqdm(total=event.total, desc=f"{event.stage:>13}", unit="step", leave=True)
+            unit = "recording" if event.stage == "subjects" else "step"
+            bar = tqdm(total=event.total, desc=f"{event.stage:>13}", unit=unit, leave=True)
             self._bars[event.stage] = bar
         bar.n = event.done
         bar.set_postfix_str(event.message, refresh=False)

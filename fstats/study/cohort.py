@@ -96,11 +96,11 @@ def _participants(spec: StudySpec) -> pd.DataFrame:
 
 
 def _subject_tables(spec: StudySpec, subjects: tuple[SubjectOutcome, ...]) -> list[pd.DataFrame]:
-    from fstats.fit import read_subject_results
-
     tables = []
     for outcome in subjects:
         if outcome.ok and "results" in outcome.files:
+            from fstats.fit import read_subject_results
+
             path = spec.output_dir / "subjects" / outcome.stem / outcome.files["results"]
             tables.append(read_subject_results(path))
     return tables

@@ -254,6 +254,7 @@ def run_study(
             _describe(scheduler, workers, len(tasks)),
         )
         done = 0
+        _notify(progress, "subjects", 0, total, "")
         for outcome in reused.values():
             done += 1
             logger.info("%s: reused (inputs and options unchanged)", outcome.stem)
