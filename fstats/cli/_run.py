@@ -17,7 +17,7 @@ _STUDY_HELP = (
 
 _LAYOUT = """\
 outputs (in the study file's output folder):
-  subjects/<stem>/<stem>_results.tsv, .json   subject GLM results (estimates in cm²/s and %)
+  subjects/<stem>/<stem>_glm.tsv, .json       subject GLM results (estimates in cm²/s and %)
   subjects/<stem>/report.html                 subject page (unless --no-reports)
   subjects/<stem>/done.json                   done marker: hash of inputs and options
   subjects/<stem>/failed.json, error.log      a failed subject's one-line error and traceback

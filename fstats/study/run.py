@@ -7,7 +7,8 @@ Output folder layout::
       study.json                    what the last run did: per-subject status, timings, group files
       subjects.tsv                  one row per recording: status (computed|reused|failed), error
       subjects/<stem>/
-        <stem>_results.tsv/.json    subject GLM results (fstats.fit.write_subject_results)
+        <stem>_glm.tsv/.json        subject GLM results (fstats.fit.write_subject_results)
+        <stem>_timecourses.tsv      block-averaged time courses (fit stage)
         report.html, figures/       subject page (when reports are on)
         done.json                   done marker, written last: hash of inputs and options
         failed.json, error.log      instead, for a failed subject: one-line error, full traceback
