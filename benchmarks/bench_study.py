@@ -39,6 +39,10 @@ import threading
 import time
 from pathlib import Path
 
+# The in-process reference loop runs with one BLAS thread, as the engine's workers do.
+for _name in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_name, "1")
+
 REPO = Path(__file__).resolve().parents[1]
 RESULTS = REPO / "benchmarks" / "results"
 DESIGN = REPO / "designs" / "subtract_blocks.yaml"
