@@ -228,6 +228,16 @@ def _cardiac_columns(spec, recording, times):
             DesignWarning,
             stacklevel=3,
         )
+    nyquist_hz = 0.5 / float(np.median(np.diff(times)))
+    top_hz = card.harmonics * beats.heart_rate_bpm / 60.0
+    if top_hz >= nyquist_hz:
+        warnings.warn(
+            f"{spec.source}: cardiac harmonic {card.harmonics} ({top_hz:.2f} Hz) is above the "
+            f"flow's Nyquist frequency ({nyquist_hz:g} Hz) and aliases; lower "
+            "nuisance.cardiac.harmonics",
+            DesignWarning,
+            stacklevel=3,
+        )
     cols = retroicor_terms(times, beats.beat_times_s, card.harmonics)
     names = []
     for m in range(1, card.harmonics + 1):

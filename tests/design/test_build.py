@@ -318,3 +318,21 @@ def test_parse_design_without_file_names_a_placeholder():
     with pytest.raises(InputError, match="<design>, line 2, key 'conditions.cue'"):
         with pytest.warns(DesignWarning, match="button"):
             build_design(spec, _recording(300.0, events=_cue_events()))
+
+
+def test_cardiac_harmonics_above_nyquist_warn(tmp_path):
+    """Source: REFERENCE-CHECKS 6.2/7.1 - harmonic m of an 81 bpm heart (1.35 Hz) aliases when
+    m x 1.35 Hz reaches half the flow's 5 Hz sampling rate (M=2: 2.7 Hz > 2.5 Hz)."""
+    rec, _ = _ppg_recording(81.0, 3)
+    slow = replace(
+        rec,
+        times_s=rec.times_s[::2],
+        flow=rec.flow[::2],
+        events=_cue_events(),
+    )
+    text = EVENTS + "nuisance:\n  cardiac: {source: aux, signal: ppg, harmonics: 2}\n"
+    with pytest.warns(DesignWarning, match="aliases"):
+        build_design(_spec(tmp_path, text), slow)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", DesignWarning)
+        build_design(_spec(tmp_path, text.replace("harmonics: 2", "harmonics: 1"), "m1.yaml"), slow)
