@@ -323,8 +323,11 @@ def _lm(
         b = np.where(better, b_t, b)
         chi = np.where(better, chi_t, chi)
         grad = np.where(better, g_t, grad)
-        resid = np.where(better[:, None], r_t, resid)
-        ju = np.where(better[:, None], j_t, ju)
+        if not better.all():  # rejected steps keep their old rows (trial arrays are ours)
+            worse = ~better
+            r_t[worse] = resid[worse]
+            j_t[worse] = ju[worse]
+        resid, ju = r_t, j_t
         lam = np.where(better, lam * 0.3, np.maximum(lam * 4.0, 1e-2))
         done = small | (better & settled)
         converged[ids[done]] = True
@@ -502,13 +505,14 @@ def fit_g2(
         n, wavelength_nm, reff,
     )  # fmt: skip
     geom_all = {k: np.broadcast_to(geom_all[k], (n_curves,)).copy() for k in _GEOM_KEYS}
-    _, group_all = np.unique(
+    rows, group_all = np.unique(
         np.stack([geom_all[k] for k in _GEOM_KEYS], axis=1), axis=0, return_inverse=True
     )
     group_all = group_all.ravel()
-    x_half = decay_product_cm2(np.exp(-0.5), geom_all, observable)
+    distinct = dict(zip(_GEOM_KEYS, rows.T, strict=True))  # usually one per channel
+    x_half = decay_product_cm2(np.exp(-0.5), distinct, observable)[group_all]
     noise_model = sigma is None and weighting == "noise-model"
-    x_e = decay_product_cm2(np.exp(-1.0), geom_all, observable) if noise_model else None
+    x_e = decay_product_cm2(np.exp(-1.0), distinct, observable)[group_all] if noise_model else None
     for start in range(0, n_curves, chunk_size):
         sl = slice(start, min(start + chunk_size, n_curves))
         chunk_flags = _fit_chunk(
