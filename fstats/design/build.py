@@ -8,10 +8,11 @@ import warnings
 import numpy as np
 
 from fstats.design.cardiac import detect_heartbeats, retroicor_terms
+from fstats.design.checks import task_column_names
+from fstats.design.contrasts import expand_contrasts
 from fstats.design.diagnostics import collinearity_report
 from fstats.design.drift import dct_drift, dct_order, polynomial_drift
-from fstats.design.loader import task_column_names
-from fstats.design.matrix import Contrast, DesignMatrix
+from fstats.design.matrix import DesignMatrix
 from fstats.design.nuisance import (
     accelerometer_magnitude,
     lagged,
@@ -293,43 +294,6 @@ def _aux_and_motion(spec, recording, times):
     return cols, names, kinds
 
 
-def _expand(weights: dict, names: list, conditions: dict, fir: dict) -> np.ndarray:
-    row = np.zeros(len(names))
-    for key, w in weights.items():
-        if key in conditions:
-            cols = conditions[key]
-            if key in fir:  # FIR: the mean over bins
-                for c in cols:
-                    row[names.index(c)] += w / len(cols)
-            else:
-                row[names.index(cols[0])] += w
-        else:
-            row[names.index(key)] += w
-    return row
-
-
-def _contrasts(spec, names, conditions, fir) -> tuple[Contrast, ...]:
-    out = []
-    for name, con in spec.contrasts.items():
-        if con.weights is not None:
-            row = _expand(con.weights, names, conditions, fir)
-            out.append(Contrast(name=name, weights=row[None, :], kind="t"))
-            continue
-        rows = []
-        for item in con.rows:
-            if isinstance(item, dict):
-                rows.append(_expand(item, names, conditions, fir))
-            elif item in spec.contrasts:
-                rows.append(_expand(spec.contrasts[item].weights, names, conditions, fir))
-            elif item in fir:  # every FIR bin: "any response"
-                for c in conditions[item]:
-                    rows.append(_expand({c: 1.0}, names, conditions, fir))
-            else:
-                rows.append(_expand({item: 1.0}, names, conditions, fir))
-        out.append(Contrast(name=name, weights=np.vstack(rows), kind="F"))
-    return tuple(out)
-
-
 def build_design(
     spec: DesignSpec, recording: Recording, *, events: TaskTiming | None = None
 ) -> DesignMatrix:
@@ -428,7 +392,7 @@ def build_design(
         kinds=tuple(kinds),
         times_s=times,
         conditions=conditions,
-        contrasts=_contrasts(spec, names, conditions, fir),
+        contrasts=expand_contrasts(spec, names, conditions, fir),
         fir_times_s=fir,
         info=info,
     )
