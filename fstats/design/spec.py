@@ -62,7 +62,12 @@ class CycleSpec(_Strict):
 
 
 class EventsSpec(_Strict):
-    """Events from the recording (events.tsv sidecar or SNIRF stims) or a named file."""
+    """Events from the recording (events.tsv sidecar or SNIRF stims) or a named file.
+
+    ``file`` may use the placeholders ``{stem}`` (the recording's stem, e.g.
+    ``sub-01_task-cue``) and ``{dir}`` (the recording's folder); relative paths start at
+    the design file's folder.
+    """
 
     source: Literal["recording", "file"] = "recording"
     file: str | None = None

@@ -70,8 +70,32 @@ def cycle_events(
     )
 
 
+_STEM_SUFFIXES = ("_flow.tsv", "_flow.csv", "_dcs.snirf")
+
+
+def _recording_stem(recording: Recording) -> tuple[str, str]:
+    source = Path(recording.source or "recording")
+    name = source.name
+    for suffix in _STEM_SUFFIXES:
+        if name.endswith(suffix):
+            return name[: -len(suffix)], str(source.parent)
+    return source.stem, str(source.parent)
+
+
 def _read_events_file(spec: DesignSpec, recording: Recording) -> TaskTiming:
-    raw = Path(spec.timing.events.file)
+    text = spec.timing.events.file
+    if "{" in text:
+        stem, folder = _recording_stem(recording)
+        try:
+            text = text.format(stem=stem, dir=folder)
+        except (KeyError, IndexError, ValueError):
+            raise InputError(
+                spec.source,
+                spec.where("timing", "events", "file"),
+                "a path with only the placeholders {stem} and {dir}",
+                spec.timing.events.file,
+            ) from None
+    raw = Path(text)
     path = raw if raw.is_absolute() else Path(spec.source).parent / raw
     if not path.exists():
         raise InputError(
@@ -170,6 +194,22 @@ def design_events(
         timing = events
     elif spec.timing.cycle is not None:
         timing = cycle_events(spec.timing.cycle, start_s=start, end_s=end)
+        late = timing.onsets_s >= end - 1e-9
+        if late.any():
+            warnings.warn(
+                f"{spec.source}: {int(late.sum())} segments of timing.cycle start after the "
+                f"recording ends ({end:g} s); they are left out (check 'repeats')",
+                DesignWarning,
+                stacklevel=2,
+            )
+            keep = ~late
+            timing = TaskTiming(
+                onsets_s=timing.onsets_s[keep],
+                durations_s=timing.durations_s[keep],
+                conditions=tuple(c for c, k in zip(timing.conditions, keep, strict=True) if k),
+                amplitudes=timing.amplitudes[keep],
+                source=timing.source,
+            )
     elif spec.timing.events.source == "file":
         timing = _read_events_file(spec, recording)
     else:

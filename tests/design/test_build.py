@@ -336,3 +336,26 @@ def test_cardiac_harmonics_above_nyquist_warn(tmp_path):
     with warnings.catch_warnings():
         warnings.simplefilter("error", DesignWarning)
         build_design(_spec(tmp_path, text.replace("harmonics: 2", "harmonics: 1"), "m1.yaml"), slow)
+
+
+def test_events_file_with_recording_placeholders(tmp_path):
+    """Source: common practice - one design for a study reads each recording's own events
+    file through the {dir} and {stem} placeholders."""
+    rec = replace(_recording(), source=str(tmp_path / "sub-01_task-subtract_flow.tsv"))
+    folder = tmp_path / "timing"
+    folder.mkdir()
+    _write_events_tsv(folder / "sub-01_task-subtract_blocks.tsv", _cycle_rows(rec.duration_s))
+    text = FROM_FILE.replace("file: events.tsv", "file: '{dir}/timing/{stem}_blocks.tsv'")
+    from_file = build_design(_spec(tmp_path, text, "p.yaml"), rec)
+    assert_array_equal(from_file.values, build_design(_spec(tmp_path, BLOCKS), rec).values)
+    bad = _spec(tmp_path, text.replace("{stem}", "{subject}"), "bad.yaml")
+    with pytest.raises(InputError, match=r"bad\.yaml, line 3, key 'timing\.events\.file'"):
+        build_design(bad, rec)
+
+
+def test_cycle_repeats_beyond_the_recording_warn(tmp_path):
+    """Source: common practice - declared repeats that do not fit are reported and dropped."""
+    text = BLOCKS.replace("    lead_in_s: 10\n", "    lead_in_s: 10\n    repeats: 9\n")
+    with pytest.warns(DesignWarning, match="start after the recording ends"):
+        ev = design_events(_spec(tmp_path, text), _recording())
+    assert len(ev.select("subtract")) == 7
