@@ -1,7 +1,7 @@
 """Flow stage: g2 curves -> BFi, quality masks, motion handling, relative flow."""
 
 from fstats.flow.cleaning import MOTION_CHOICES, clean_flow, relative_flow
-from fstats.flow.fitting import BETA_MAX, WEIGHTINGS, G2FitResult, fit_g2
+from fstats.flow.fitting import WEIGHTINGS, G2FitResult, fit_g2
 from fstats.flow.forward import (
     ADULT_HEAD_DEFAULTS,
     OBSERVABLES,
@@ -15,6 +15,7 @@ from fstats.flow.motion import MOTION_METHODS, correct_motion, detect_motion, ma
 from fstats.flow.noise import g2_noise_sd, multi_tau_lags
 from fstats.flow.screening import BLOCKING_REASONS, QUALITY_REASONS
 from fstats.flow.series import fill_short_gaps, lowpass, relative_flow_values, resample
+from fstats.flow.solver import BETA_MAX
 
 __all__ = [
     "ADULT_HEAD_DEFAULTS",
