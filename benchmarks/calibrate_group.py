@@ -195,33 +195,51 @@ def timing(n_per_group: int, seed: int, repeats: int = 30) -> dict:
     }
 
 
-def end_to_end(n_cohorts: int, n_per_group: int, seed: int, design: str) -> dict | str:
-    """Null cohorts through the real pipeline: fstats.simulate -> design -> fit -> group.
+def end_to_end(
+    n_cohorts: int,
+    n_per_group: int,
+    seed: int,
+    design: str,
+    *,
+    duration_s: float = 900.0,
+    sfreq_hz: float = 20.0,
+    fit_options: dict | None = None,
+) -> dict | str:
+    """Cohorts through the real pipeline: fstats.simulate -> design -> fit -> group.
 
-    Each cohort is simulated with ``group_effect_pct=0`` (no group difference), every
-    recording is fitted with the design's fit options, and the Welch two-group test on
-    ``frontal_a`` is counted.  Returns rates, or a reason when a stage is missing.
+    ``n_cohorts`` null cohorts (``group_effect_pct=0``) and as many with the simulator's
+    default difference (-5 points) are simulated; every recording is fitted with the
+    design's fit options (updated by ``fit_options``) and the Welch two-group test on
+    ``frontal_a`` 'subtract' is counted.  Also reported: the median subject-level
+    ``se_pct`` and the sd of subject estimates within a group, i.e. the quantities the
+    summary-level simulation assumes.  Returns a reason when a stage is missing.
     """
+    import dataclasses
     import tempfile
     from pathlib import Path
 
     try:
         from fstats.design import build_design, load_design
-        from fstats.fit import SubjectGLM
+        from fstats.fit.glm import SubjectGLM
         from fstats.inputs import read_cohort, read_recording
+        from fstats.simulate import SimulationSettings
         from fstats.simulate.cohort import simulate_cohort
     except ImportError as exc:
         return f"skipped: {exc}"
     spec = load_design(design)
-    glm = SubjectGLM(**dict(getattr(spec, "fit_options", {}) or {}))
-    null_p, alt_p, seconds = [], [], []
+    options = {**dict(getattr(spec, "fit_options", {}) or {}), **(fit_options or {})}
+    glm = SubjectGLM(**options)
+    settings = dataclasses.replace(SimulationSettings(), duration_s=duration_s, sfreq_hz=sfreq_hz)
+    p_values = {0.0: [], -5.0: []}
+    ses, sds, seconds = [], [], []
     for c in range(n_cohorts):
-        for diff, store in ((0.0, null_p), (-5.0, alt_p)):
+        for diff, store in p_values.items():
             t0 = time.perf_counter()
             with tempfile.TemporaryDirectory() as tmp:
                 root = simulate_cohort(
                     Path(tmp) / "cohort",
                     n_per_group=n_per_group,
+                    settings=settings,
                     seed=seed + 1000 * c + int(diff == 0),
                     group_effect_pct=diff,
                 )
@@ -231,17 +249,27 @@ def end_to_end(n_cohorts: int, n_per_group: int, seed: int, design: str) -> dict
                     recording = read_recording(entry.path)
                     fit = glm.fit(recording, build_design(spec, recording))
                     tables.append(fit.table())
+                tables = pd.concat(tables, ignore_index=True)
                 res = GroupModel(
                     kind="two-sample", influence=False, terms=("subtract",), channels=("frontal_a",)
-                ).fit(pd.concat(tables, ignore_index=True), cohort.participants)
+                ).fit(tables, cohort.participants)
                 store.append(float(res.table()["p"].iloc[0]))
+                est = res.subject_estimates
+                ses.extend(est["se"].tolist())
+                sds.extend(est.groupby("group")["estimate"].std().tolist())
             seconds.append(time.perf_counter() - t0)
-    k0, k1 = int(np.sum(np.array(null_p) <= 0.05)), int(np.sum(np.array(alt_p) <= 0.05))
+    null, alt = np.array(p_values[0.0]), np.array(p_values[-5.0])
+    k0 = int(np.sum(null <= 0.05))
     return {
         "cohorts per condition": n_cohorts,
-        "null rejection rate": k0 / n_cohorts,
+        "subjects per group": n_per_group,
+        "recording": f"{duration_s:g} s at {sfreq_hz:g} Hz",
+        "fit": options,
+        "null rejections": f"{k0}/{n_cohorts}",
         "null Wilson 95 %": wilson(k0, n_cohorts),
-        "power at -5 points": k1 / n_cohorts,
+        "power at -5 points": float(np.mean(alt <= 0.05)),
+        "median subject se_pct": float(np.median(ses)),
+        "median within-group sd of subject estimates": float(np.median(sds)),
         "median s per cohort": float(np.median(seconds)),
     }
 
@@ -259,11 +287,26 @@ def main() -> None:
         help="also run N null and N alternative cohorts through simulate + fit",
     )
     parser.add_argument("--design", default="designs/subtract_blocks.yaml")
+    parser.add_argument(
+        "--duration-s", type=float, default=900.0, help="end-to-end: simulated recording length (s)"
+    )
+    parser.add_argument(
+        "--sfreq-hz", type=float, default=20.0, help="end-to-end: simulated sampling rate (Hz)"
+    )
     parser.add_argument("--skip-summary", action="store_true", help="only the end-to-end check")
     args = parser.parse_args()
     if args.end_to_end:
         print("end-to-end (fstats.simulate -> design -> fit -> group):")
-        print(" ", end_to_end(args.end_to_end, args.n_per_group, args.seed, args.design))
+        found = end_to_end(
+            args.end_to_end,
+            args.n_per_group,
+            args.seed,
+            args.design,
+            duration_s=args.duration_s,
+            sfreq_hz=args.sfreq_hz,
+        )
+        for key, value in found.items() if isinstance(found, dict) else [("", found)]:
+            print(f"  {key}: {value}")
         if args.skip_summary:
             return
     t0 = time.perf_counter()
