@@ -359,3 +359,29 @@ def test_cycle_repeats_beyond_the_recording_warn(tmp_path):
     with pytest.warns(DesignWarning, match="start after the recording ends"):
         ev = design_events(_spec(tmp_path, text), _recording())
     assert len(ev.select("subtract")) == 7
+
+
+def test_cardiac_rate_on_the_demo_cohort(tmp_path):
+    """Source: the simulated demo cohort's ground_truth.json (CONTRACTS section 6) - for every
+    subject of both groups, the heart rate detected from the scalp channel by the demo design
+    is within 2 bpm of the simulated 'heart_rate_bpm'."""
+    import json
+
+    simulate = pytest.importorskip("fstats.simulate")
+    from fstats.inputs import read_cohort, read_recording
+    from fstats.simulate.cohort import simulate_cohort
+
+    root = simulate_cohort(
+        tmp_path / "cohort",
+        n_per_group=3,
+        settings=simulate.SimulationSettings(duration_s=300.0),
+        seed=21,
+    )
+    truth = json.loads((root / "ground_truth.json").read_text())["subjects"]
+    spec = load_design(DESIGNS / "subtract_blocks.yaml")
+    cohort = read_cohort(root)
+    assert len(cohort.recordings) == 6
+    for entry in cohort.recordings:
+        d = build_design(spec, read_recording(entry.path))
+        expected = truth[entry.participant_id]["heart_rate_bpm"]
+        assert abs(d.info["cardiac"]["heart_rate_bpm"] - expected) < 2.0, entry.participant_id
