@@ -7,13 +7,15 @@ size.  The reference measured in the same run is one plain matplotlib figure of 
 full-resolution flow traces saved as PNG and SVG (what a page without trace thinning
 would draw for its first figure alone); the ratio shows what the thinning buys.
 
-Run: ``python benchmarks/bench_report.py [--repeats 3] [--minutes 30] [--method ar-irls]``
+Run: ``python benchmarks/bench_report.py [--repeats 3] [--minutes 30] [--method ar-irls]
+[--reuse-fit]`` (the fit is pickled to ``benchmarks/results/``, git-ignored).
 """
 
 from __future__ import annotations
 
 import argparse
 import io
+import pickle
 import statistics
 import tempfile
 import time
@@ -47,6 +49,11 @@ def main() -> None:
     parser.add_argument("--repeats", type=int, default=3)
     parser.add_argument("--minutes", type=float, default=30.0)
     parser.add_argument("--method", default="ar-irls", help="subject GLM method for the fit")
+    parser.add_argument(
+        "--reuse-fit",
+        action="store_true",
+        help="reuse the fit pickled by an earlier run in benchmarks/results/ (same minutes/method)",
+    )
     args = parser.parse_args()
 
     from fstats.design import build_design, load_design
@@ -60,7 +67,15 @@ def main() -> None:
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         design = build_design(load_design(root / "designs" / "subtract_blocks.yaml"), recording)
-        fit, fit_wall, _ = _timed(lambda: SubjectGLM(method=args.method).fit(recording, design))
+        cache = (
+            root / "benchmarks" / "results" / f"report_fit_{args.minutes:g}min_{args.method}.pkl"
+        )
+        if args.reuse_fit and cache.exists():
+            fit, fit_wall = pickle.loads(cache.read_bytes()), float("nan")
+        else:
+            fit, fit_wall, _ = _timed(lambda: SubjectGLM(method=args.method).fit(recording, design))
+            cache.parent.mkdir(parents=True, exist_ok=True)
+            cache.write_bytes(pickle.dumps(fit))
     print(
         f"recording: {recording.duration_s / 60:.1f} min, {recording.sfreq_hz:g} Hz, "
         f"{recording.n_times} samples x {len(recording.channels)} channels "

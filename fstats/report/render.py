@@ -72,7 +72,7 @@ class FigureStore:
             raise ValueError(f"figure key must be a plain file stem, got {key!r}")
         self.folder.mkdir(parents=True, exist_ok=True)
         buffer = io.BytesIO()
-        fig.savefig(buffer, format="png", dpi=self.dpi)
+        fig.savefig(buffer, format="png", dpi=self.dpi, pil_kwargs={"compress_level": 3})
         png = buffer.getvalue()
         (self.folder / f"{key}.png").write_bytes(png)
         # The layout is solved once, for the PNG; the SVG reuses the same positions.

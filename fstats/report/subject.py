@@ -203,7 +203,7 @@ def subject_report(
     out_path,
     *,
     provenance: dict | None = None,
-    max_points: int = 3000,
+    max_points: int = 2000,
     dpi: int = PNG_DPI,
 ) -> Path:
     """Write the HTML page of one subject's recording, design and fit.
@@ -221,7 +221,7 @@ def subject_report(
     provenance : dict, optional
         ``fstats_version``, ``created``, ``options``, ``design``, ``packages``,
         ``inputs`` ({path: sha256}) as in the results JSON sidecar.
-    max_points : int, default=3000
+    max_points : int, default=2000
         Samples per trace after min/max thinning (keeps long recordings light).
     dpi : int
         PNG resolution.
