@@ -194,7 +194,7 @@ def _short_columns(spec, recording, times):
 def _cardiac_columns(spec, recording, times):
     card = spec.nuisance.cardiac
     if card is None:
-        return np.zeros((times.size, 0)), [], None
+        return np.zeros((times.size, 0)), [], None, None
     key = ("nuisance", "cardiac")
     if card.source == "aux":
         sig = _aux(spec, recording, card.signal, key + ("signal",))
@@ -252,9 +252,8 @@ def _cardiac_columns(spec, recording, times):
         "dominant_hz": beats.dominant_hz,
         "band_hz": list(beats.band_hz),
         "harmonics": card.harmonics,
-        "beat_times_s": beats.beat_times_s,
     }
-    return cols, names, summary
+    return cols, names, summary, beats.beat_times_s
 
 
 def _aux_and_motion(spec, recording, times):
@@ -315,7 +314,9 @@ def build_design(
         Columns in the order task, constant, drift, short, cardiac, aux, motion.
         ``info`` holds ``design`` (name, source), ``responses``, ``n_events``,
         ``events`` (the TaskTiming used), ``cardiac`` (heart_rate_bpm, n_beats,
-        beat_quality, source_channel, ...; None without cardiac terms),
+        beat_quality, source_channel, source, dominant_hz, band_hz, harmonics: plain
+        numbers and text; None without cardiac terms), ``heartbeats_s`` (ndarray of
+        detected beat times in s, or None),
         ``diagnostics`` (condition_number, vif, nuisance_r2, warnings) and
         ``fit_options`` (passed through untouched).
 
@@ -355,7 +356,7 @@ def build_design(
     names += short_names
     kinds += ["short"] * len(short_names)
 
-    card_cols, card_names, card_info = _cardiac_columns(spec, recording, times)
+    card_cols, card_names, card_info, beat_times = _cardiac_columns(spec, recording, times)
     blocks.append(card_cols)
     names += card_names
     kinds += ["cardiac"] * len(card_names)
@@ -376,6 +377,7 @@ def build_design(
         "n_events": {c: len(timing.select(c)) for c in spec.conditions},
         "events": timing,
         "cardiac": card_info,
+        "heartbeats_s": beat_times,
         "diagnostics": diagnostics,
         "fit_options": dict(spec.fit_options),
     }

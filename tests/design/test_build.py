@@ -280,6 +280,10 @@ def test_cardiac_terms_from_ppg_aux(tmp_path):
     assert card["beat_quality"] > 0.9
     assert d.kinds.count("cardiac") == 6
     assert set(card) >= {"heart_rate_bpm", "n_beats", "beat_quality", "source_channel"}
+    import json
+
+    json.dumps(card)  # plain numbers and text, safe for result sidecars
+    assert d.info["heartbeats_s"].size == card["n_beats"]
 
 
 @pytest.mark.parametrize("seed", [0, 1, 2])
