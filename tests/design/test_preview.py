@@ -92,3 +92,32 @@ def test_preview_subprocess_has_no_traceback(recording_path, tmp_path):
     assert proc.returncode == 2
     assert "Traceback" not in proc.stderr
     assert "did you mean 'harmonics'?" in proc.stderr
+
+
+def _malformed_cases():
+    """The malformed design files of test_loader.py (loaded by path: tests are not a package)."""
+    import importlib.util
+
+    spec = importlib.util.spec_from_file_location(
+        "_design_loader_cases", Path(__file__).with_name("test_loader.py")
+    )
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module.MALFORMED
+
+
+@pytest.mark.parametrize("case", _malformed_cases(), ids=lambda c: c[0])
+def test_every_malformed_design_through_the_cli(recording_path, tmp_path, capsys, case):
+    """Source: common practice (STYLE.md section 3) - each malformed design file gives exit
+    code 2 and one stderr line naming the file, line and key, without a traceback."""
+    name, text, line, key, contains = case
+    bad = tmp_path / f"{name}.yaml"
+    bad.write_text(text)
+    code = main(["preview", str(bad), str(recording_path[0])])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert err.count("\n") == 1 and "Traceback" not in err
+    assert f"{bad}, line {line}" in err
+    if key:
+        assert f"key '{key}'" in err
+    assert contains in err
