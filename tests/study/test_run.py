@@ -39,7 +39,10 @@ def cohort(tmp_path_factory):
     )
 
 
-def _study(folder, cohort, *, reports=False, workers=2):
+TWO_GROUPS = "{kind: two-sample, options: {groups: [older, younger]}}"
+
+
+def _study(folder, cohort, *, reports=False, workers=2, group=TWO_GROUPS):
     folder.mkdir(parents=True, exist_ok=True)
     path = folder / "study.yaml"
     path.write_text(
@@ -48,7 +51,7 @@ def _study(folder, cohort, *, reports=False, workers=2):
             cohort: {cohort}
             design: {DESIGN}
             channels: {{short: scalp}}
-            group: {{kind: two-sample, options: {{groups: [older, younger]}}}}
+            group: {group}
             corrections: {{method: fdr}}
             output: out
             reports: {str(reports).lower()}
@@ -124,7 +127,8 @@ def test_corrupt_recording_fails_alone(tmp_path, cohort):
     lines[10] = "\t".join([cells[0], "not-a-number", *cells[2:]])
     flow.write_text("".join(lines))
     # statistics first (subject pages are slow); then the cohort page alone via regroup
-    study = _study(tmp_path / "run", copy, reports=True)
+    # one-sample: with two subjects per group a failure would leave a group of one
+    study = _study(tmp_path / "run", copy, reports=True, group="{kind: one-sample}")
     outcome = run_study(study, workers=2, reports=False)
     (failure,) = outcome.failures
     assert failure["participant_id"] == "sub-02"
