@@ -156,6 +156,7 @@ def _run(study: Path, workers: int, *, reports: bool, force: bool = True) -> dic
         for step, seconds in json.loads(marker.read_text()).get("stage_seconds", {}).items():
             steps.setdefault(step, []).append(seconds)
     return {
+        "load_average_1min": os.getloadavg()[0],
         "workers": workers,
         "reports": reports,
         "wall_s": wall_s,
@@ -226,6 +227,8 @@ def main() -> None:
         f"\n{args.subjects} subjects x 3 channels x {args.duration_s:g} s at "
         f"{args.sfreq_hz:g} Hz, {os.cpu_count()} CPU cores"
     )
+    print("machine load (1-min load average at the end of each run; >2 means shared cores):")
+    print("  " + ", ".join(f"{k}: {r['load_average_1min']:.1f}" for k, r in runs.items()))
     print(f"{'run':32} {'wall s':>8} {'run s':>8} {'peak tree MB':>13} {'max proc MB':>12}  counts")
     for name, run in runs.items():
         single = f"{run['max_process_mb']:.0f}" if run["max_process_mb"] else "n/a"
