@@ -194,6 +194,7 @@ def weights_figure(
     threshold: float = 0.5,
     motion_spans: Sequence[tuple[float, float]] = (),
     max_points: int = 3000,
+    bin_s: float = 1.0,
 ):
     """Robust weights of each fitted channel over time, low-weight spans shaded.
 
@@ -206,6 +207,9 @@ def weights_figure(
         Weight below which a sample counts as down-weighted (dotted line).
     motion_spans : sequence of (start_s, stop_s)
     max_points : int
+        Upper bound on points per channel.
+    bin_s : float, default=1.0
+        Shortest averaging bin in seconds (weights are shown as bin means).
     """
     fig, ax = new_figure(9.0, 2.6)
     for start, stop in motion_spans:
@@ -213,7 +217,8 @@ def weights_figure(
     for i, (name, w) in enumerate(weights.items()):
         style = channel_style(i, False)
         # Bin means: isolated down-weighted samples fade, runs of them (motion) stand out.
-        t, v = thin_curve(times_s, max_points // 2), thin_curve(w, max_points // 2)
+        n_bins = int(min(max_points // 2, max(10, (times_s[-1] - times_s[0]) / bin_s)))
+        t, v = thin_curve(times_s, n_bins), thin_curve(w, n_bins)
         ax.plot(t, v, linewidth=0.8, label=plain_label(name), **style.line_kwargs())
     ax.axhline(
         threshold, color="#444444", linestyle=":", linewidth=1.0, label=f"weight {threshold}"

@@ -29,7 +29,7 @@ __all__ = [
 ]
 
 #: Series colours, dark to light in alternation so neighbours differ in grey value.
-#: Hex sRGB; relative luminance (WCAG) is roughly 0.04, 0.45, 0.12, 0.62, 0.25, 0.80.
+#: Hex sRGB; relative luminance (WCAG) is about 0.04, 0.38, 0.07, 0.47, 0.13, 0.69.
 HARBOUR: tuple[str, ...] = (
     "#14365d",  # deep harbour blue
     "#e0962a",  # buoy amber
@@ -97,7 +97,8 @@ def channel_style(index: int, is_short: bool) -> SeriesStyle:
     if is_short:
         colors = ("#e0962a", "#b5651d", "#f0c27b")
         return SeriesStyle(colors[index % 3], "--", "s")
-    colors = ("#14365d", "#7b2d4f", "#3f6e3a", "#5a7fa8")
+    # Luminance 0.04, 0.20, 0.46, 0.13: the first three differ clearly in grey.
+    colors = ("#14365d", "#c2577f", "#9fb7d9", "#3f6e3a")
     styles = ("-", "-.", ":", (0, (5, 1, 1, 1)))
     markers = ("o", "^", "D", "v")
     return SeriesStyle(colors[index % 4], styles[index % 4], markers[index % 4])

@@ -59,3 +59,13 @@ def test_plain_label_blocks_mathtext_and_hidden_legend():
     a legend entry; user names must show literally."""
     assert plain_label("a$b$") == r"a\$b\$"
     assert plain_label("_x") == " _x"
+
+
+def test_channel_styles_differ_in_grey_value_or_line_style():
+    """Source: common practice - the first two long channels differ in grey value
+    (luminance gap > 0.1); any two channel styles differ in grey value or line style."""
+    styles = [channel_style(i, False) for i in range(3)] + [channel_style(0, True)]
+    assert abs(relative_luminance(styles[0].color) - relative_luminance(styles[1].color)) > 0.1
+    for a, b in itertools.combinations(styles, 2):
+        gap = abs(relative_luminance(a.color) - relative_luminance(b.color))
+        assert gap > 0.1 or a.linestyle != b.linestyle
