@@ -418,11 +418,26 @@ def _fit_chunk(
 
     fixed = None if fit_beta else b_start
     wy = w * (y - 1.0)
-    u_start, curv0, model = _grid_start(wy, w, lags, geom, observable, u0, fixed, group)
+    u_start, curv0, model, n_keep, slowest = _grid_start(
+        wy, w, lags, geom, observable, u0, fixed, group
+    )
+    # iterate on the lags that matter; the others add a constant (wy²) to χ²
+    cut = slice(0, n_keep)
     u, b, n_iter, converged, resid = _lm(
-        y, w, lags, geom, observable, u_start, b_start, fit_beta, max_iter, xtol, ftol,
-        model=model, curv0=curv0,
+        y[:, cut], w[:, cut], lags[cut], geom, observable, u_start, b_start, fit_beta,
+        max_iter, xtol, ftol, model=(model[0][:, cut], model[1][:, cut]), curv0=curv0,
     )  # fmt: skip
+    if n_keep < n_lags:
+        resid = np.concatenate([resid, wy[:, n_keep:]], axis=1)
+        slow = np.flatnonzero(u < slowest)  # ended slower than the grid: refit on all lags
+        if slow.size:
+            u_s, b_s, it_s, conv_s, r_s = _lm(
+                y[slow], w[slow], lags, {k: v[slow] for k, v in geom.items()}, observable,
+                u[slow], b[slow], fit_beta, max_iter, xtol, ftol,
+            )  # fmt: skip
+            u[slow], b[slow], resid[slow] = u_s, b_s, r_s
+            n_iter[slow] += it_s
+            converged[slow] = conv_s
     n_used = mask.sum(axis=1)
     n_par = 2 if fit_beta else 1
     chi = np.einsum("ij,ij->i", resid, resid)

@@ -138,6 +138,9 @@ def _grid_start(wy, w, lags, geom, observable, u_guess, fixed, group):
     """Starting log-BFi per curve: minimum of the (β-profiled) χ² over a grid, refined by
     a parabola through the grid minimum and its neighbours.
 
+    Also returns how many leading lags matter (the rest hold a weighted model below
+    1e-6 even at the grid's slowest flow) and that slowest log BFi per curve.
+
     The grid spans the 1st-99th percentiles of the crossing-based guesses ± 0.6 (a factor
     1.8 in BFi) in steps of about :data:`_GRID_STEP`, at most 41 points; each geometry's
     model table (n_grid, n_lags) is evaluated once and
@@ -145,6 +148,9 @@ def _grid_start(wy, w, lags, geom, observable, u_guess, fixed, group):
     iteration while putting every curve next to its global minimum.
     """
     start = u_guess.copy()
+    slowest = np.full(u_guess.size, np.inf)  # lowest log BFi on each curve's grid
+    n_needed = 3  # lags that matter for any curve down to its grid's slowest flow
+    w_max = float(np.max(w)) if w.size else 0.0
     half_curv = np.full(u_guess.size, np.nan)
     g1sq = np.empty_like(w)
     dg_du = np.empty_like(w)
@@ -175,13 +181,18 @@ def _grid_start(wy, w, lags, geom, observable, u_guess, fixed, group):
         j = np.clip(best, 1, n_grid - 2)
         r = np.arange(rows.size)
         c_m, c_0, c_p = chi[r, j - 1], chi[r, j], chi[r, j + 1]
+        # lags where even the slowest grid flow leaves a weighted model below 1e-6 (of a
+        # standard deviation) carry no information on BFi for these curves
+        significant = table_g[0] * (BETA_MAX * w_max) > 1e-6
+        n_needed = max(n_needed, int(np.flatnonzero(significant).max(initial=0)) + 1)
+        slowest[rows] = grid[0]
         # the iteration starts on the best grid point, where the model is already known,
         # with the parabola's curvature (½ d²χ²/du²) for its first Newton step
         half_curv[rows] = np.where(inner, 0.5 * (c_m - 2.0 * c_0 + c_p) / step**2, np.nan)
         start[rows] = grid[best]
         g1sq[rows] = table_g[best]
         dg_du[rows] = slope_g[best]
-    return start, half_curv, (g1sq, dg_du)
+    return start, half_curv, (g1sq, dg_du), n_needed, slowest
 
 
 def _lm(
