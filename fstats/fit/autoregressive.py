@@ -246,9 +246,10 @@ def whitened_rows(valid: np.ndarray, order: int) -> np.ndarray:
     valid = np.asarray(valid, dtype=bool)
     if order == 0:
         return valid.copy()
-    bad = np.concatenate([np.ones(order), (~valid).astype(float)])
-    window = np.convolve(bad, np.ones(order + 1), mode="valid")
-    return np.rint(window) == 0
+    bad = np.concatenate([np.ones(order, dtype=np.int64), (~valid).astype(np.int64)])
+    csum = np.concatenate([[0], np.cumsum(bad)])
+    window = csum[order + 1 :] - csum[: -order - 1]
+    return window == 0
 
 
 def whiten(values: np.ndarray, coefs: np.ndarray, valid: np.ndarray) -> np.ndarray:
@@ -270,5 +271,13 @@ def whiten(values: np.ndarray, coefs: np.ndarray, valid: np.ndarray) -> np.ndarr
     """
     x = np.where(np.reshape(valid, (-1,) + (1,) * (np.ndim(values) - 1)), values, 0.0)
     b = np.concatenate([[1.0], -np.asarray(coefs, dtype=float)])
-    filtered = signal.lfilter(b, [1.0], x, axis=0) if b.size > 1 else x.astype(float)
+    if b.size == 1:
+        filtered = x.astype(float)
+    elif b.size <= 12:
+        filtered = np.array(x, dtype=float)
+        for i in range(1, b.size):
+            filtered[i:] += b[i] * x[:-i]
+    else:
+        kernel = b.reshape((-1,) + (1,) * (x.ndim - 1))
+        filtered = signal.oaconvolve(x, kernel, mode="full", axes=0)[: x.shape[0]]
     return filtered[whitened_rows(valid, b.size - 1)]

@@ -21,7 +21,7 @@ import logging
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from scipy import fft, stats
 
 from fstats.fit.autoregressive import whiten, whitened_rows
 from fstats.fit.covariance import spectral_sandwich
@@ -178,10 +178,15 @@ def _model_curve(glm, fit, recording, design, condition, onsets, span_s):
     eye = np.eye(x.shape[1])
     tests = []
     if glm.covariance == "spectral" and glm.method != "ols":
-        bins = max(1, int(round(glm.smoothing_hz * yw.size / recording.sfreq_hz)))
+        bins = max(
+            1,
+            int(
+                round(glm.smoothing_hz * fft.next_fast_len(yw.size, real=True) / recording.sfreq_hz)
+            ),
+        )
         spectral = spectral_sandwich(xw, resid, w, inv, smoothing_bins=bins, columns=n_bins)
         cov = spectral.cov
-        dofs = [spectral.contrast_dof(eye[j, :n_bins]) for j in range(n_bins)]
+        dofs = spectral.contrast_dof(np.eye(n_bins))
     else:
         cov = inv * np.sum(w * resid**2) / dof_model
         dofs = [dof_model] * n_bins

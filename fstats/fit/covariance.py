@@ -47,8 +47,13 @@ class SpectralCovariance:
         Periodogram of the influence series.
     adjust : ndarray, shape (n_freqs,)
         ``1 - d(f)``, the expected share of white-noise power left in the residuals.
+    denominator : ndarray, shape (n_freqs,)
+        Smoothed ``1 - d(f)`` (floored at 0.1 per bin), the divisor of ``Ŝ(f)``.
     smoothing_bins : int
         Half-width of the Daniell smoother, in frequency bins.
+    bin_ratio : float
+        ``n / n_fft``: the series is zero-padded to a fast FFT length, so neighbouring
+        ordinates are slightly correlated; degrees of freedom are scaled by this ratio.
     """
 
     cov: np.ndarray
@@ -56,20 +61,27 @@ class SpectralCovariance:
     noise_spectrum: np.ndarray
     raw_periodogram: np.ndarray
     adjust: np.ndarray
+    denominator: np.ndarray
     smoothing_bins: int
+    bin_ratio: float = 1.0
 
-    def contrast_dof(self, weights: np.ndarray) -> float:
-        """Satterthwaite degrees of freedom of ``c'β̂`` for one contrast row ``c`` (shape (k,))."""
+    def contrast_dof(self, weights: np.ndarray) -> float | np.ndarray:
+        """Satterthwaite df of ``c'β̂``: ``weights`` shape (k,) → float, (q, k) → (q,)."""
         return satterthwaite_dof(self, weights)
 
 
 def _daniell(values: np.ndarray, half_width: int) -> np.ndarray:
-    """Running sum over ±half_width bins, reflecting at the ends (one-sided spectrum)."""
+    """Running sum over ±half_width bins along axis 0, reflecting at both ends."""
     if half_width == 0:
-        return values.copy()
-    padded = np.concatenate([values[half_width:0:-1], values, values[-2 : -half_width - 2 : -1]])
-    kernel = np.ones(2 * half_width + 1)
-    return np.convolve(padded, kernel, mode="valid")
+        return np.array(values, dtype=float, copy=True)
+    m = min(half_width, values.shape[0] - 1)
+    padded = np.concatenate([values[m:0:-1], values, values[-2 : -m - 2 : -1]], axis=0)
+    csum = np.cumsum(padded, axis=0)
+    csum = np.concatenate([np.zeros((1,) + values.shape[1:]), csum], axis=0)
+    out = csum[2 * m + 1 :] - csum[: -2 * m - 1]
+    if m < half_width:  # very short series: scale to the nominal window length
+        out = out * (2 * half_width + 1) / (2 * m + 1)
+    return out
 
 
 def spectral_sandwich(
@@ -107,29 +119,28 @@ def spectral_sandwich(
     With ``v_t = (X̃ B)_t`` and ``ψ_t = w_t ẽ_t``, ``c'(β̂ - β) ≈ Σ_t (v_t·c) ψ_t``, so
     ``var(c'β̂) = Σ_f |V_c(f)|² S_ψ(f) / n`` for a stationary ``ψ`` (two-sided sum over
     the DFT grid).  ``Ŝ_ψ(f_j) = Σ_{|i-j|≤M} I_i / Σ_{|i-j|≤M} (1 - d_i)`` with
-    ``I_i = |Ψ(f_i)|² / n`` and the leverage ``d_i`` as in the module notes.  Under
-    white noise this reduces, in expectation, to the Huber sandwich
-    ``B X̃'W²X̃ B σ²``.
+    ``I_i = |Ψ(f_i)|² / n`` and the leverage ``d_i = G_i B G_i^H / n``, ``G = DFT(√W X̃)``
+    (the diagonal of the weighted hat matrix in the Fourier basis).  Under white noise
+    this reduces, in expectation, to the Huber sandwich ``B X̃'W²X̃ B σ²``.
     """
     n, k = design.shape
+    n_fft = fft.next_fast_len(n, real=True)
     psi = weights * residuals
-    v = design @ (xtwx_inv if columns is None else xtwx_inv[:, :columns])
-    n_fft = n
     side = np.full(n_fft // 2 + 1, 2.0)
     side[0] = 1.0
     if n_fft % 2 == 0:
         side[-1] = 1.0
-    spec_v = fft.rfft(v, n=n_fft, axis=0) * np.sqrt(side / n)[:, None]
+    g = fft.rfft(design, n=n_fft, axis=0)
+    gw = fft.rfft(design * np.sqrt(weights)[:, None], n=n_fft, axis=0)
+    b = xtwx_inv if columns is None else xtwx_inv[:, :columns]
+    spec_v = (g @ b) * np.sqrt(side / n_fft)[:, None]
     periodogram = np.abs(fft.rfft(psi, n=n_fft)) ** 2 / n
-    q, _ = np.linalg.qr(design * np.sqrt(weights)[:, None], mode="reduced")
-    leverage = np.sum(np.abs(fft.rfft(q, n=n_fft, axis=0)) ** 2, axis=1) / n
+    leverage = np.real(np.sum((gw @ xtwx_inv) * np.conj(gw), axis=1)) / n
     adjust = np.clip(1.0 - leverage, 0.0, 1.0)
     numer = _daniell(periodogram, smoothing_bins)
-    denom = _daniell(adjust, smoothing_bins)
-    floor = 0.1 * (2 * smoothing_bins + 1)
-    noise = numer / np.maximum(denom, floor)
-    weighted = spec_v * noise[:, None]
-    cov = np.real(spec_v.conj().T @ weighted)
+    denom = np.maximum(_daniell(adjust, smoothing_bins), 0.1 * (2 * smoothing_bins + 1))
+    noise = numer / denom
+    cov = np.real(spec_v.conj().T @ (spec_v * noise[:, None]))
     cov = 0.5 * (cov + cov.T)
     return SpectralCovariance(
         cov=cov,
@@ -137,36 +148,36 @@ def spectral_sandwich(
         noise_spectrum=noise,
         raw_periodogram=periodogram,
         adjust=adjust,
+        denominator=denom,
         smoothing_bins=smoothing_bins,
+        bin_ratio=n / n_fft,
     )
 
 
-def satterthwaite_dof(spectral: SpectralCovariance, contrast: np.ndarray) -> float:
-    """Satterthwaite degrees of freedom of the variance of one contrast.
+def satterthwaite_dof(spectral: SpectralCovariance, contrast: np.ndarray) -> np.ndarray | float:
+    """Satterthwaite degrees of freedom of the variance of contrasts.
 
     Parameters
     ----------
     spectral : SpectralCovariance
-    contrast : ndarray, shape (k,)
-        Contrast weights.
+    contrast : ndarray, shape (k,) or (q, k)
+        Contrast weights (one row per contrast).
 
     Returns
     -------
-    float
+    float or ndarray, shape (q,)
         ``2 (Σ_i a_i E I_i)² / Σ_i (a_i E I_i)²`` where the variance estimate is
         ``Σ_i a_i I_i`` (``a_i`` from the smoother and ``|V_c|²``), ``E I_i`` is
-        approximated by ``Ŝ_i (1 - d_i)``, and each ordinate counts as χ²₂/2
-        (the zero-frequency and Nyquist ordinates as χ²₁).
+        approximated by ``Ŝ_i (1 - d_i)``, and each ordinate counts as χ²₂/2.
     """
-    m = spectral.smoothing_bins
-    power = np.abs(spectral.design_spectrum @ np.asarray(contrast, dtype=float)) ** 2
-    floor = 0.1 * (2 * m + 1)
-    denom = np.maximum(_daniell(spectral.adjust, m), floor)
-    # variance estimate = Σ_j power_j Σ_{|i-j|≤M} I_i / denom_j = Σ_i I_i a_i
-    a = _daniell(power / denom, m)
-    expected = spectral.noise_spectrum * spectral.adjust
-    terms = a * expected
-    total = terms.sum()
-    if not total > 0:
-        return np.nan
-    return float(2.0 * total**2 / np.sum(terms**2))
+    c = np.asarray(contrast, dtype=float)
+    rows = np.atleast_2d(c)
+    power = np.abs(spectral.design_spectrum @ rows.T) ** 2
+    a = _daniell(power / spectral.denominator[:, None], spectral.smoothing_bins)
+    terms = a * (spectral.noise_spectrum * spectral.adjust)[:, None]
+    total = terms.sum(axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        dof = np.where(
+            total > 0, spectral.bin_ratio * 2.0 * total**2 / np.sum(terms**2, axis=0), np.nan
+        )
+    return float(dof[0]) if c.ndim == 1 else dof

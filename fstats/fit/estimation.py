@@ -5,6 +5,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import fft
 
 from fstats.fit.autoregressive import fit_ar, whiten, whitened_rows
 from fstats.fit.covariance import SpectralCovariance, spectral_sandwich
@@ -218,7 +219,9 @@ def estimate_channel(
     cov = s2 * xtwx_inv
     spectral = None
     if covariance == "spectral":
-        bins = max(1, int(round(smoothing_hz * yw.shape[0] / sfreq_hz)))
+        bins = max(
+            1, int(round(smoothing_hz * fft.next_fast_len(yw.shape[0], real=True) / sfreq_hz))
+        )
         spectral = spectral_sandwich(xw, ew, weights_w, xtwx_inv, smoothing_bins=bins)
         cov = spectral.cov
     fitted = _masked(design, betas, valid)
