@@ -13,6 +13,9 @@ from pathlib import Path
 import pandas as pd
 
 from fstats.errors import InputError
+from fstats.fit import read_subject_results
+from fstats.group import GroupModel, write_group_results
+from fstats.inputs import read_participants
 from fstats.study.engine import StudyProgress, one_line_error
 from fstats.study.ledger import write_json_atomic, write_text_atomic
 from fstats.study.studyfile import StudySpec
@@ -88,8 +91,6 @@ def _notify(progress: ProgressHook | None, stage: str, done: int, total: int, me
 
 def _participants(spec: StudySpec) -> pd.DataFrame:
     if spec.participants_path is not None:
-        from fstats.inputs import read_participants
-
         return read_participants(spec.participants_path)
     ids = list(dict.fromkeys(r.participant_id for r in spec.recordings))
     return pd.DataFrame({"participant_id": ids})
@@ -99,8 +100,6 @@ def _subject_tables(spec: StudySpec, subjects: tuple[SubjectOutcome, ...]) -> li
     tables = []
     for outcome in subjects:
         if outcome.ok and "results" in outcome.files:
-            from fstats.fit import read_subject_results
-
             path = spec.output_dir / "subjects" / outcome.stem / outcome.files["results"]
             tables.append(read_subject_results(path))
     return tables
@@ -137,8 +136,6 @@ def finish_study(
         group_error = "no subject results to pool"
         logger.warning("group level skipped: %s", group_error)
     else:
-        from fstats.group import GroupModel, write_group_results
-
         participants = _participants(spec)
         model = GroupModel(**spec.group_options)
         try:
@@ -179,7 +176,7 @@ def finish_study(
 
 
 def _cohort_page(spec, subjects, group_result, participants, provenance) -> Path | None:
-    from fstats.report import cohort_report
+    from fstats.report import cohort_report  # matplotlib only when pages are wanted
 
     pages = {}
     for s in subjects:
@@ -211,7 +208,7 @@ def _cohort_page(spec, subjects, group_result, participants, provenance) -> Path
 
 def _group_time_courses(spec, subjects, participants) -> pd.DataFrame | None:
     """Group-average response time courses from the subjects' stored course tables."""
-    from fstats.report import average_time_courses
+    from fstats.report import average_time_courses  # matplotlib only when pages are wanted
 
     tables = []
     for s in subjects:

@@ -43,7 +43,11 @@ from typing import Any, Literal
 import yaml
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
 
+from fstats.design import load_design
 from fstats.errors import InputError, suggest
+from fstats.fit import SubjectGLM
+from fstats.group import GroupModel
+from fstats.inputs import find_recordings
 
 __all__ = ["StudyRecording", "StudySpec", "load_study", "recording_stem"]
 
@@ -288,8 +292,6 @@ def _resolve(base: Path, text: str) -> Path:
 def _from_cohort(
     folder: Path, task: str | None, study_path: Path
 ) -> tuple[tuple[StudyRecording, ...], Path | None]:
-    from fstats.inputs import find_recordings
-
     if not folder.is_dir():
         raise InputError(
             study_path,
@@ -428,10 +430,6 @@ _GROUP_KEYS = {
 
 def _check_group_options(path: Path, options: dict) -> None:
     """Build the group model once so a bad group section fails before any fitting."""
-    try:
-        from fstats.group import GroupModel
-    except ImportError:  # group stage not installed: checked when the group level runs
-        return
     known = {f.name for f in dataclasses.fields(GroupModel)}
     for name in options:
         if name not in known:
@@ -455,11 +453,6 @@ def _check_group_options(path: Path, options: dict) -> None:
 
 def _check_design_and_fit(path: Path, design_path: Path, overrides: dict) -> None:
     """Load the design and build the subject GLM once, so bad options fail before any task."""
-    try:
-        from fstats.design import load_design
-        from fstats.fit import SubjectGLM
-    except ImportError:  # stages not installed: checked in each task
-        return
     spec = load_design(design_path)  # raises InputError naming the design file
     design_options = dict(getattr(spec, "fit_options", {}) or {})
     known = {f.name for f in dataclasses.fields(SubjectGLM)}

@@ -21,7 +21,11 @@ from pathlib import Path
 
 import numpy as np
 
+from fstats.design import build_design, load_design
 from fstats.errors import InputError, suggest
+from fstats.fit import SubjectGLM, write_subject_results
+from fstats.flow import flow_from_g2
+from fstats.inputs import read_recording
 from fstats.inputs.recording import Recording
 from fstats.study.ledger import write_text_atomic
 
@@ -193,10 +197,6 @@ def analyse_subject(task: SubjectTask) -> SubjectOutcome:
         For a recording or design the stages reject; any other exception is a
         failure too.  The engine records both as the subject's one-line error.
     """
-    from fstats.design import build_design, load_design
-    from fstats.fit import SubjectGLM, write_subject_results
-    from fstats.inputs import read_recording
-
     work_dir = Path(task.work_dir)
     clock = _StageClock()
     read_options = {}
@@ -208,8 +208,6 @@ def analyse_subject(task: SubjectTask) -> SubjectOutcome:
             recording = dataclasses.replace(recording, subject=task.participant_id)
         recording = _with_channel_roles(recording, task)
     if _needs_flow_from_g2(recording):
-        from fstats.flow import flow_from_g2
-
         logger.info("%s: deriving flow from g2 curves", task.stem)
         with clock("flow"):
             recording = flow_from_g2(recording)
@@ -218,7 +216,7 @@ def analyse_subject(task: SubjectTask) -> SubjectOutcome:
         design = build_design(spec, recording)
     design_options = dict(getattr(spec, "fit_options", {}) or {})
     with clock("fit"):
-        glm = _subject_glm(SubjectGLM, design_options, task)
+        glm = _subject_glm(design_options, task)
         fit = glm.fit(recording, design, channels=task.long_channels)
     provenance = dict(task.provenance)
     provenance["inputs"] = dict(task.inputs)
@@ -235,7 +233,7 @@ def analyse_subject(task: SubjectTask) -> SubjectOutcome:
     if courses.is_file():
         files["timecourses"] = courses.name
     if task.reports:
-        from fstats.report import subject_report
+        from fstats.report import subject_report  # matplotlib only when pages are wanted
 
         with clock("report"):
             page = subject_report(
@@ -255,7 +253,7 @@ def analyse_subject(task: SubjectTask) -> SubjectOutcome:
 
 def _write_time_courses(fit, recording: Recording, task: SubjectTask, work_dir: Path) -> str:
     """Write the subject's response time courses (for the cohort page's group averages)."""
-    from fstats.report import subject_time_courses
+    from fstats.report import subject_time_courses  # matplotlib only when pages are wanted
 
     courses = subject_time_courses(fit, recording, participant_id=task.participant_id)
     name = f"{task.stem}_courses.tsv"
@@ -279,14 +277,14 @@ class _StageClock:
             self.seconds[name] = round(self.seconds.get(name, 0.0) + elapsed, 4)
 
 
-def _subject_glm(glm_class: type, design_options: dict, task: SubjectTask):
+def _subject_glm(design_options: dict, task: SubjectTask) -> SubjectGLM:
     """A ``SubjectGLM`` from the design's fit options overridden by the study's.
 
     Without reports nothing shows the block-averaged time courses, so they are
     not computed (they cost more than the GLM itself) unless an option asks for them.
     """
     options = {**design_options, **task.fit_options}
-    known = {f.name for f in dataclasses.fields(glm_class)}
+    known = {f.name for f in dataclasses.fields(SubjectGLM)}
     if not task.reports and "block_averages" in known:
         options.setdefault("block_averages", False)
     for name in options:
@@ -299,7 +297,9 @@ def _subject_glm(glm_class: type, design_options: dict, task: SubjectTask):
                 hint=suggest(name, known),
             )
     try:
-        return glm_class(**options)
+        return SubjectGLM(**options)
+    except InputError:
+        raise
     except (TypeError, ValueError) as exc:
         raise InputError(
             task.design_path, "fit", "valid fit options", options, hint=str(exc)
