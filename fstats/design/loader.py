@@ -135,7 +135,8 @@ def _expected_text(error: dict) -> str:
 
 
 def _raise_validation(exc: pydantic.ValidationError, path: str, lines: dict) -> None:
-    errors = exc.errors()
+    # an unknown key is reported before a missing one: a typo usually causes both
+    errors = sorted(exc.errors(), key=lambda e: e["type"] != "extra_forbidden")
     first = errors[0]
     real = _real_path(first["loc"], lines)
     loc = first["loc"]

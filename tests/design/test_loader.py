@@ -191,6 +191,13 @@ MALFORMED = [
         "less than or equal to 6",
     ),
     (
+        "typo_hides_required_key",
+        VALID + "nuisance:\n  aux:\n    - {signl: resp}\n",
+        22,
+        "nuisance.aux[0].signl",
+        "did you mean 'signal'?",
+    ),
+    (
         "empty_file",
         "",
         1,
