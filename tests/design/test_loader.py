@@ -157,10 +157,10 @@ MALFORMED = [
     ),
     (
         "f_test_row_unknown",
-        VALID + "  both: {rows: [tap, tpa]}\n".replace("  both", "  both"),
-        None,
-        "",
-        "",
+        VALID.replace("fit_options:", "  both: {rows: [tap, tpa]}\nfit_options:"),
+        17,
+        "contrasts.both.rows[1]",
+        "did you mean 'tap'?",
     ),
     (
         "fit_method_typo",
@@ -212,14 +212,6 @@ MALFORMED = [
         "YAML mapping",
     ),
 ]
-# the F-row case: the row sits inside contrasts (line 17, the 'both' entry)
-MALFORMED[17] = (
-    "f_test_row_unknown",
-    VALID.replace("fit_options:", "  both: {rows: [tap, tpa]}\nfit_options:"),
-    17,
-    "contrasts.both.rows[1]",
-    "did you mean 'tap'?",
-)
 
 
 def _write(tmp_path, name, text):
