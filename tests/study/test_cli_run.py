@@ -36,3 +36,19 @@ def test_workers_must_be_positive(tmp_path, capsys):
         main(["run", str(tmp_path / "s.yaml"), "--workers", "0"])
     assert info.value.code == 2
     assert "expected a number of workers >= 1" in capsys.readouterr().err
+
+
+def test_progress_is_plain_logging_off_a_terminal_and_bars_on_one(capsys):
+    """Source: common practice - progress bars only on a terminal; log lines otherwise."""
+    from fstats.cli._run import _Bars, _progress
+    from fstats.study import StudyProgress
+
+    with _progress() as bars:  # pytest's stderr is not a terminal
+        assert bars is None
+    bars = _Bars()
+    for done in range(4):
+        bars(StudyProgress("subjects", done, 3, f"sub-0{done}: computed"))
+    bars(StudyProgress("group", 1, 1, "group model"))
+    bars.close()
+    err = capsys.readouterr().err
+    assert "3/3" in err and "1/1" in err and "sub-03: computed" in err
