@@ -27,12 +27,19 @@ __all__ = ["flow_from_g2"]
 logger = logging.getLogger(__name__)
 
 
-def _per_channel(value, name: str, channels: tuple[str, ...], what: str) -> float:
+def _per_channel(value, name: str, what: str) -> float:
     if isinstance(value, Mapping):
         if name not in value:
-            raise KeyError(f"{what} has no value for channel {name!r}")
+            raise ValueError(f"{what} has no value for channel {name!r}")
         return float(value[name])
     return float(value)
+
+
+def _wavelength(option: float | None, channel_nm: float | None) -> float:
+    for value in (option, channel_nm):
+        if value is not None and np.isfinite(value) and value > 0:
+            return float(value)
+    return float(ADULT_HEAD_DEFAULTS["wavelength_nm"])
 
 
 def flow_from_g2(
@@ -101,7 +108,8 @@ def flow_from_g2(
         Flow filled from the fits (cm²/s, or relative with ``baseline_window_s``).
         ``provenance["flow"]`` holds the fit settings, per-channel curve counts and
         reasons, ``beta`` (n_times, n_channels), and masks (n_times, n_channels):
-        ``bad_curve`` (not fitted), ``poor_fit``, ``low_count_rate``, ``motion``,
+        ``bad_curve`` (not fitted), ``poor_fit`` (poor fit, β out of range or not
+        converged), ``low_count_rate``, ``motion``,
         ``filled`` and their union ``exclude`` (for the GLM's robust weights).
 
     Raises
@@ -147,13 +155,13 @@ def flow_from_g2(
     settings = None
     for c, channel in enumerate(recording.channels):
         rate = None if recording.count_rate_hz is None else recording.count_rate_hz[:, c]
-        wl = wavelength_nm or channel.wavelength_nm or ADULT_HEAD_DEFAULTS["wavelength_nm"]
+        wl = _wavelength(wavelength_nm, channel.wavelength_nm)
         result = fit_g2(
             g2[:, c, :],
             recording.lags_s,
             separation_cm=channel.separation_cm,
-            mua_per_cm=_per_channel(mua_per_cm, channel.name, names, "mua_per_cm"),
-            musp_per_cm=_per_channel(musp_per_cm, channel.name, names, "musp_per_cm"),
+            mua_per_cm=_per_channel(mua_per_cm, channel.name, "mua_per_cm"),
+            musp_per_cm=_per_channel(musp_per_cm, channel.name, "musp_per_cm"),
             n=n,
             wavelength_nm=wl,
             reff=reff,
@@ -172,9 +180,14 @@ def flow_from_g2(
         bfi[:, c] = result.bfi_cm2_s
         beta_out[:, c] = result.beta
         masks["bad_curve"][:, c] = ~result.fitted
-        masks["poor_fit"][:, c] = np.char.find(result.status.astype(str), "poor fit") >= 0
-        masks["poor_fit"][:, c] |= result.fitted & ~result.converged
-        masks["low_count_rate"][:, c] = np.char.find(result.status.astype(str), "low count") >= 0
+        status = result.status.astype(str)
+        # fitted but not trusted: poor fit, β at a bound, or no convergence
+        masks["poor_fit"][:, c] = result.fitted & (
+            (np.char.find(status, "poor fit") >= 0)
+            | (np.char.find(status, "beta out of range") >= 0)
+            | ~result.converged
+        )
+        masks["low_count_rate"][:, c] = np.char.find(status, "low count") >= 0
         curves[channel.name] = {
             "n_curves": int(n_times),
             "fitted": int(result.fitted.sum()),

@@ -189,3 +189,32 @@ def test_heavy_failure_warns_with_quality_warning():
         issubclass(w.category, QualityWarning) and "frontal_b" in str(w.message) for w in caught
     )
     assert np.all(np.isnan(out.flow[:, 2])) and np.isfinite(out.flow[:, :2]).all()
+
+
+def test_unknown_channel_wavelength_falls_back_to_default():
+    """Source: common practice - SNIRF stores NaN for an unknown wavelength; the fit then uses
+    the documented default (785 nm) instead of propagating NaN."""
+    rng = np.random.default_rng(8)
+    rec, _ = _recording(rng, duration_s=5.0)
+    channels = tuple(
+        Channel(c.name, c.separation_cm, c.is_short, float("nan")) for c in rec.channels
+    )
+    out = flow_from_g2(Recording(**{**rec.__dict__, "channels": channels}), motion="none")
+    ref = flow_from_g2(rec, motion="none")
+    assert_allclose(out.flow, ref.flow, rtol=1e-12)
+    assert out.provenance["flow"]["curves"]["scalp"]["wavelength_nm"] == 785.0
+
+
+def test_per_channel_optics_mapping():
+    """Source: REFERENCE-CHECKS 5.1 - g1 depends on musp; a channel given a different musp
+    gets a different BFi, the others are unchanged; a missing channel is refused."""
+    rng = np.random.default_rng(9)
+    rec, _ = _recording(rng, duration_s=5.0)
+    base = flow_from_g2(rec, motion="none")
+    other = flow_from_g2(
+        rec, motion="none", musp_per_cm={"scalp": 10.0, "frontal_a": 8.0, "frontal_b": 10.0}
+    )
+    assert_allclose(other.flow[:, [0, 2]], base.flow[:, [0, 2]], rtol=1e-12)
+    assert not np.allclose(other.flow[:, 1], base.flow[:, 1], rtol=1e-3, atol=0.0)
+    with pytest.raises(ValueError, match="frontal_b"):
+        flow_from_g2(rec, musp_per_cm={"scalp": 10.0, "frontal_a": 8.0})
