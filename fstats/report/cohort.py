@@ -81,7 +81,7 @@ def _split_effects(table: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
 
 def _unit_label(table: pd.DataFrame) -> str:
     units = set(table.get("units", pd.Series(dtype=str)).dropna().astype(str))
-    if units == {"raw"}:
+    if units & {"raw", "cm2/s", "cm²/s"}:
         return "estimate (cm²/s per unit regressor)"
     return "flow change (%)"
 

@@ -5,7 +5,7 @@ import re
 
 import pytest
 
-from fstats.report import CAUTION, SUBJECT_SECTIONS
+from fstats.report import CAUTION, SUBJECT_SECTIONS, subject_report
 
 XSS = "<script>alert(1)</script>"  # also in conftest
 
@@ -140,3 +140,27 @@ def test_figure_folder_swap_replaces_old_figures(tmp_path):
     figure_folder_swap(fresh, final)
     assert sorted(p.name for p in final.iterdir()) == ["traces.png"]
     assert not fresh.exists()
+
+
+def test_page_without_events_or_fitted_channels(case, tmp_path):
+    """Source: common practice - a recording without events whose channels all failed
+    still gets a page that says so, instead of an error."""
+    import dataclasses
+    from types import SimpleNamespace
+
+    import pandas as pd
+
+    recording, design, _ = case
+    bare = dataclasses.replace(recording, events=None, subject=None)
+    fit = SimpleNamespace(
+        subject=None,
+        session=None,
+        channel_fits={"frontal_a": SimpleNamespace(reason="design rank deficient")},
+        table=lambda: pd.DataFrame(),
+        block_averages=None,
+    )
+    path = subject_report(bare, design, fit, tmp_path / "bare.html")
+    text = path.read_text(encoding="utf-8")
+    assert "design rank deficient" in text
+    assert "No responses to show" in text
+    assert 'id="fig-fitted"' not in text and 'id="fig-traces"' in text
