@@ -188,7 +188,7 @@ def _model_curve(glm, fit, recording, design, condition, onsets, span_s):
         cov = spectral.cov
         dofs = spectral.contrast_dof(np.eye(n_bins))
     else:
-        cov = inv * np.sum(w * resid**2) / dof_model
+        cov = (inv * np.sum(w * resid**2) / dof_model)[:n_bins, :n_bins]
         dofs = [dof_model] * n_bins
     from fstats.fit.inference import t_test
 

@@ -92,6 +92,7 @@ def spectral_sandwich(
     *,
     smoothing_bins: int,
     columns: int | None = None,
+    bread: np.ndarray | None = None,
 ) -> SpectralCovariance:
     """Frequency-domain sandwich covariance of a (prewhitened, weighted) regression.
 
@@ -109,6 +110,9 @@ def spectral_sandwich(
         Half-width ``M`` of the Daniell periodogram smoother, in bins of ``1/n`` cycles per sample.
     columns : int, optional
         Only the covariance of the first ``columns`` coefficients (cheaper for wide designs).
+    bread : ndarray, shape (k, k), optional
+        The sandwich's bread ``B`` (default ``xtwx_inv``); for an M-estimator
+        ``(X̃' diag(ψ') X̃)^-1``.  ``xtwx_inv`` is still used for the leverage.
 
     Returns
     -------
@@ -132,7 +136,8 @@ def spectral_sandwich(
         side[-1] = 1.0
     g = fft.rfft(design, n=n_fft, axis=0)
     gw = fft.rfft(design * np.sqrt(weights)[:, None], n=n_fft, axis=0)
-    b = xtwx_inv if columns is None else xtwx_inv[:, :columns]
+    bread = xtwx_inv if bread is None else bread
+    b = bread if columns is None else bread[:, :columns]
     spec_v = (g @ b) * np.sqrt(side / n_fft)[:, None]
     periodogram = np.abs(fft.rfft(psi, n=n_fft)) ** 2 / n
     leverage = np.real(np.sum((gw @ xtwx_inv) * np.conj(gw), axis=1)) / n

@@ -153,7 +153,10 @@ def estimate_channel(
     OLS (``"ar"``) or bisquare IRLS (``"ar-irls"``) on the whitened rows.  The
     covariance is ``s² (X̃'WX̃)^-1`` with ``s² = Σ w ẽ² / (Σ w - k)`` and the effective
     degrees of freedom are ``Σ w - k`` (``W = I`` without robust weighting), computed
-    on the whitened rows.
+    on the whitened rows.  With ``covariance="spectral"`` (default) the covariance is
+    the frequency-domain sandwich of :mod:`fstats.fit.covariance` instead; for
+    AR-IRLS its bread is ``(X̃' diag(ψ'(u)) X̃)^-1`` with the bisquare derivative ψ'
+    (Huber's M-estimator sandwich), and its meat the spectrum of ``ψ = w ẽ``.
     """
     if method not in METHODS:
         raise ValueError(f"method must be one of {METHODS}, not {method!r}")
@@ -200,7 +203,7 @@ def estimate_channel(
         xw = whiten(design0, ar.coefs, valid)
         if method == "ar-irls":
             fit = irls(yw, xw, c=tukey_c, betas=betas)
-            new, weights_w = fit.betas, fit.weights
+            new, weights_w, scale_w = fit.betas, fit.weights, fit.scale
         else:
             new, _ = weighted_least_squares(yw, xw)
             weights_w = np.ones(yw.shape[0])
@@ -222,7 +225,12 @@ def estimate_channel(
         bins = max(
             1, int(round(smoothing_hz * fft.next_fast_len(yw.shape[0], real=True) / sfreq_hz))
         )
-        spectral = spectral_sandwich(xw, ew, weights_w, xtwx_inv, smoothing_bins=bins)
+        bread = xtwx_inv
+        if method == "ar-irls":
+            bread = _bisquare_bread(xw, ew, scale_w, tukey_c, xtwx_inv)
+        spectral = spectral_sandwich(
+            xw, ew, weights_w, xtwx_inv, smoothing_bins=bins, bread=bread
+        )
         cov = spectral.cov
     fitted = _masked(design, betas, valid)
     resid = np.where(valid, flow - fitted, np.nan)
@@ -246,6 +254,16 @@ def estimate_channel(
         ar_order_bic=ar.bic,
         spectral=spectral,
     )
+
+
+def _bisquare_bread(xw, ew, scale, c, fallback):
+    """``(X̃' diag(ψ'(u)) X̃)^-1`` with ``u = ẽ / s`` and the bisquare ``ψ'`` (Huber sandwich)."""
+    u = ew / scale / c
+    dpsi = np.where(np.abs(u) <= 1.0, (1.0 - u * u) * (1.0 - 5.0 * u * u), 0.0)
+    try:
+        return weighted_least_squares(np.zeros(xw.shape[0]), xw, dpsi)[1]
+    except np.linalg.LinAlgError:
+        return fallback
 
 
 def _masked(design: np.ndarray, betas: np.ndarray, valid: np.ndarray) -> np.ndarray:
