@@ -88,7 +88,8 @@ def test_beat_quality_drops_for_irregular_detections():
     times, flow, _, _ = _pulsatile_flow(np.random.default_rng(1), 20.0, 120.0, 70.0)
     clean = detect_heartbeats(flow, 20.0).beat_quality
     noisy = detect_heartbeats(noise, 20.0).beat_quality
-    assert noisy < clean
+    assert clean > 0.95
+    assert noisy < 0.8  # below the threshold at which build_design warns
 
 
 def test_detection_rejects_too_low_sampling_rate():
