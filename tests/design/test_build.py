@@ -389,3 +389,13 @@ def test_cardiac_rate_on_the_demo_cohort(tmp_path):
         d = build_design(spec, read_recording(entry.path))
         expected = truth[entry.participant_id]["heart_rate_bpm"]
         assert abs(d.info["cardiac"]["heart_rate_bpm"] - expected) < 2.0, entry.participant_id
+
+
+def test_doubtful_heartbeat_detection_warns(tmp_path):
+    """Source: common practice - a scalp channel without a pulse (random-walk noise) gives
+    irregular detections; the beat quality (< 0.8) is reported with a DesignWarning."""
+    text = BLOCKS + "nuisance:\n  cardiac: {source: short}\n"
+    text = text.replace("nuisance:\n  short_channels: {channels: [scalp], lags_s: [0.5]}\n", "")
+    with pytest.warns(DesignWarning, match="doubtful"):
+        d = build_design(_spec(tmp_path, text), _recording())
+    assert d.info["cardiac"]["beat_quality"] < 0.8
