@@ -15,7 +15,7 @@ import math
 import numpy as np
 from scipy import signal
 
-from fstats.design.response import response_kernel
+from fstats.design.response import kernel_length_s, response_kernel
 
 __all__ = [
     "FINE_STEP_MAX_S",
@@ -160,19 +160,25 @@ def average_to_samples(fine: np.ndarray, oversample: int) -> np.ndarray:
     return fine[: n * oversample].reshape((n, oversample) + fine.shape[1:]).mean(axis=1)
 
 
-def _stimulus_for(times_s, onsets_s, durations_s, amplitudes):
+def _stimulus_for(times_s, onsets_s, durations_s, amplitudes, *, memory_s=0.0):
+    """Fine-grid stimulus for a data grid, padded before the first sample when events
+    start before it (by ``memory_s``, the kernel's length, so responses to them that
+    reach into the recording are kept).  Returns (stim, oversample, fine_step, n_pad)."""
     step = float(np.median(np.diff(times_s)))
     oversample, fine_step = fine_grid(float(times_s[0]), step, times_s.size)
-    n_fine = times_s.size * oversample
+    onsets = np.asarray(onsets_s, dtype=float)
+    n_pad = 0
+    if memory_s > 0 and onsets.size and onsets.min() < times_s[0]:
+        n_pad = int(np.ceil(memory_s / step))
     stim = stimulus_on_grid(
-        onsets_s,
+        onsets,
         durations_s,
         amplitudes,
-        start_s=float(times_s[0]),
+        start_s=float(times_s[0]) - n_pad * step,
         fine_step_s=fine_step,
-        n_fine=n_fine,
+        n_fine=(times_s.size + n_pad) * oversample,
     )
-    return stim, oversample, fine_step
+    return stim, oversample, fine_step, n_pad
 
 
 def derivative_kernels(
@@ -247,20 +253,24 @@ def task_regressor(
     ndarray, shape (n_times, 1 + len(derivatives))
         Sample averages of the convolved stimulus.  A long block of height a
         plateaus at a; an impulse of amplitude a gives a times the unit-area kernel.
+        Events that start before the first sample still contribute the part of their
+        response that falls inside the recording.
     """
     params = dict(params or {})
     times_s = np.asarray(times_s, dtype=float)
     if model == "boxcar":
         lag = float(params.get("lag_s", 0.0))
-        stim, oversample, _ = _stimulus_for(
+        stim, oversample, _, _ = _stimulus_for(
             times_s, np.asarray(onsets_s) + lag, durations_s, amplitudes
         )
         return average_to_samples(stim, oversample)[:, None]
-    stim, oversample, fine_step = _stimulus_for(times_s, onsets_s, durations_s, amplitudes)
+    stim, oversample, fine_step, n_pad = _stimulus_for(
+        times_s, onsets_s, durations_s, amplitudes, memory_s=kernel_length_s(model, params)
+    )
     kernels = [response_kernel(model, params, fine_step)]
     kernels += derivative_kernels(model, params, fine_step, tuple(derivatives))
     columns = [convolve_on_grid(stim, k, fine_step) for k in kernels]
-    return average_to_samples(np.column_stack(columns), oversample)
+    return average_to_samples(np.column_stack(columns), oversample)[n_pad:]
 
 
 def fir_regressors(
@@ -295,7 +305,7 @@ def fir_regressors(
     amps = np.asarray(amplitudes, dtype=float)
     columns = []
     for j in range(n_bins):
-        stim, oversample, _ = _stimulus_for(
+        stim, oversample, _, _ = _stimulus_for(
             np.asarray(times_s, dtype=float), onsets + j * bin_s, np.full(onsets.size, bin_s), amps
         )
         columns.append(average_to_samples(stim, oversample))

@@ -168,3 +168,19 @@ def test_dispersion_derivative_of_gamma_variate_matches_scipy():
     dn = 1e-4
     expected = _sample_average(lambda t: -(pdf(t, 4 + dn) - pdf(t, 4 - dn)) / (2 * dn), times, step)
     assert_allclose(cols[:, 1], expected, atol=0.015 * np.abs(expected).max())
+
+
+def test_events_before_the_recording_keep_their_response_tail():
+    """Source: closed form - a block from -30 s to +30 s seen from a recording starting at 0
+    is the same curve as on a longer time base: F(t + 30) - F(t - 30) with F the gamma CDF
+    of the unit-area flow kernel; an impulse at -3 s still shows its tail."""
+    step = 0.1
+    times = np.arange(0.0, 100.0, step)
+    x = task_regressor(times, [-30.0], [60.0], [1.0], model="flow")[:, 0]
+    dist = stats.gamma(4.0, scale=4.0 / 3.0)
+    expected = _sample_average(lambda t: dist.cdf(t + 30.0) - dist.cdf(t - 30.0), times, step)
+    assert_allclose(x, expected, atol=1e-3)
+    assert_allclose(x[:50], 1.0, atol=1e-3)  # already at plateau when the recording starts
+    tail = task_regressor(times, [-3.0], [0.0], [1.0], model="flow")[:, 0]
+    longer = task_regressor(np.arange(-10.0, 100.0, step), [-3.0], [0.0], [1.0], model="flow")
+    assert_allclose(tail, longer[100:, 0], atol=1e-12)
