@@ -36,6 +36,8 @@ def _compose(text: str, path: str) -> tuple[object, dict]:
             if exc.context_mark is not None and exc.context_mark.line + 1 != line:
                 context = (exc.context or "the construct").strip()
                 hint = f"{context} started at line {exc.context_mark.line + 1}"
+            if "'\\t'" in problem or "\t" in problem:
+                hint = "indent YAML with spaces, not tabs"
             raise InputError(path, f"line {line}", "valid YAML", problem, hint=hint) from None
         except yaml.YAMLError as exc:
             raise InputError(path, "line ?", "valid YAML", str(exc).splitlines()[0]) from None

@@ -198,6 +198,20 @@ MALFORMED = [
         "did you mean 'signal'?",
     ),
     (
+        "tab_indentation",
+        VALID.replace("  tap:\n    response: flow", "  tap:\n\tresponse: flow"),
+        11,
+        "",
+        "spaces, not tabs",
+    ),
+    (
+        "unsafe_yaml_tag",
+        VALID.replace("name: test_blocks", "name: !!python/object/apply:os.system [ls]"),
+        1,
+        "",
+        "plain YAML values",
+    ),
+    (
         "empty_file",
         "",
         1,
