@@ -64,6 +64,8 @@ _VIF_HIGH = 10.0
 #: Robust weights are averaged over this window (s) before looking for motion spans, so
 #: single down-weighted samples (ordinary outliers) do not count as motion.
 _MOTION_WINDOW_S = 1.0
+#: Block-average sources drawn in preference to others.
+_PREFERRED_SOURCES = ("model", "fir")
 #: Display names of block-average sources.
 _SOURCE_NAMES = {"model": "model-based, FIR", "epochs": "epoch average", "epoch": "epoch average"}
 _RESULT_COLUMNS = [
@@ -151,9 +153,9 @@ def _residual_checks(fits: dict, sfreq_hz: float) -> tuple[dict, dict, dict]:
         if acf_a is None and whitened is not None:
             acf_a = autocorrelation(whitened, max_lag)
         if acf_b is not None:
-            before[name] = np.asarray(acf_b, dtype=float)
+            before[name] = np.asarray(acf_b, dtype=float)[: max_lag + 1]
         if acf_a is not None:
-            after[name] = np.asarray(acf_a, dtype=float)
+            after[name] = np.asarray(acf_a, dtype=float)[: max_lag + 1]
         test_series = whitened if whitened is not None else residuals
         dw = _diagnostic(diag, "durbin_watson", "dw")
         lb = _diagnostic(diag, "ljung_box_p", "ljung_box_pvalue", "lb_p")
@@ -450,19 +452,33 @@ def _subject_context(recording, design, fit, store: FigureStore, max_points: int
         else None
     )
     methods = list(dict.fromkeys(c["method"] for c in curves))
+    # One figure: the model-based average when the fit has one (it accounts for the
+    # nuisance regressors); other sources are named in the note and kept in the tables.
+    methods = [
+        m
+        for _, m in sorted(
+            enumerate(methods), key=lambda im: (im[1] not in _PREFERRED_SOURCES, im[0])
+        )
+    ]
     response_figures = []
-    for i, method in enumerate(methods[:2]):
+    if methods:
+        method = methods[0]
         chosen = [c for c in curves if c["method"] == method]
-        key = "responses" if i == 0 else "responses_alt"
         what = f" ({_SOURCE_NAMES.get(method, method)})" if method else ""
         response_figures.append(
             store.add(
-                key,
+                "responses",
                 responses_figure(chosen, durations_s=durations),
                 f"Average response per condition{what}: short channels left, long right; "
                 "shaded band: confidence interval, grey: task period.",
             )
         )
+        if len(methods) > 1:
+            others = ", ".join(_SOURCE_NAMES.get(m, m) for m in methods[1:])
+            responses_note += (
+                f" Shown: {_SOURCE_NAMES.get(method, method)}; also computed by the fit and "
+                f"kept in its time-course table: {others}."
+            )
 
     regressor_table, contrast_table = _results_tables(fit)
     residual_table, acf_before, acf_after = _residual_checks(fitted, sfreq)
