@@ -174,6 +174,12 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument(
         "--no-influence", action="store_true", help="skip the leave-one-out influence check"
     )
+    parser.add_argument(
+        "--mixed-reference",
+        choices=("t", "normal"),
+        default="t",
+        help="mixed models: t on n_subjects - n_fixed df (default) or normal (Wald z)",
+    )
     parser.set_defaults(func=_handler)
 
 
@@ -267,6 +273,7 @@ def _handler(args: argparse.Namespace) -> int:
         max_statistic=args.max_statistic,
         seed=args.seed,
         influence=not args.no_influence,
+        mixed_reference=args.mixed_reference,
     )
     result = model.fit(tables, participants)
     inputs = {str(p): _sha256(p) for p in paths}

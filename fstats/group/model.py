@@ -17,7 +17,7 @@ import pandas as pd
 
 from fstats.errors import InputError, suggest
 from fstats.group._prepare import prepare_inputs
-from fstats.group.mixed import fit_mixed, split_formula
+from fstats.group.mixed import MIXED_REFERENCES, fit_mixed, split_formula
 from fstats.group.multiple import CORRECTIONS, adjust_pvalues
 from fstats.group.permutation import sign_flip_test
 from fstats.group.result import TABLE_COLUMNS, GroupResult
@@ -29,7 +29,13 @@ __all__ = ["KINDS", "TABLE_COLUMNS", "GroupModel", "GroupResult"]
 #: Group model kinds.
 KINDS: tuple[str, ...] = ("one-sample", "two-sample", "paired", "interaction", "mixed")
 
-_CHOICES = {"kind": KINDS, "weighting": WEIGHTINGS, "correction": CORRECTIONS, "units": UNITS}
+_CHOICES = {
+    "kind": KINDS,
+    "weighting": WEIGHTINGS,
+    "correction": CORRECTIONS,
+    "units": UNITS,
+    "mixed_reference": MIXED_REFERENCES,
+}
 
 
 @dataclass(frozen=True, eq=False)
@@ -84,6 +90,9 @@ class GroupModel:
         Seed of the permutation generator when ``fit`` gets no ``rng``.
     influence : bool, default=True
         Leave-one-out influence check for the summary models.
+    mixed_reference : {"t", "normal"}, default="t"
+        Mixed models: t on ``n_subjects - n_fixed`` df, or the normal reference of
+        statsmodels (anti-conservative with few subjects).
 
     Notes
     -----
@@ -120,6 +129,7 @@ class GroupModel:
     max_statistic: bool = False
     seed: int = 0
     influence: bool = True
+    mixed_reference: str = "t"
 
     def __post_init__(self) -> None:
         for name in ("terms", "channels", "groups", "pair"):  # YAML lists -> tuples
@@ -375,7 +385,7 @@ def _mixed_rows(model: GroupModel, unit, base: dict, prepared) -> list[dict]:
         base.update(status=f"too few subjects ({len(unit.subjects)}) for a mixed model")
         return [base]
     try:
-        res = fit_mixed(unit.runs, formula, alpha=model.alpha)
+        res = fit_mixed(unit.runs, formula, alpha=model.alpha, reference=model.mixed_reference)
     except (ValueError, np.linalg.LinAlgError) as exc:
         base.update(status=f"mixed model failed: {exc}".split("\n")[0])
         return [base]

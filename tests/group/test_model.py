@@ -122,7 +122,9 @@ def test_mixed_model_equals_direct_statsmodels_call(cohort_factory):
     """Source: statsmodels MixedLM via smf.mixedlm(...).fit(reml=True), called directly
     (REFERENCE-CHECKS 4.3)."""
     tables, participants = cohort_factory(np.random.default_rng(5), runs=3)
-    res = GroupModel(kind="mixed", formula="effect ~ group + age").fit(tables, participants)
+    res = GroupModel(kind="mixed", formula="effect ~ group + age", mixed_reference="normal").fit(
+        tables, participants
+    )
     table = res.table()
     sel = tables[(tables["channel"] == "frontal_a") & (tables["term"] == "subtract")]
     data = sel.merge(participants, left_on="subject", right_on="participant_id")
@@ -135,6 +137,12 @@ def test_mixed_model_equals_direct_statsmodels_call(cohort_factory):
         assert_allclose(ours.loc[name, "se"], ref.bse_fe[name], rtol=1e-6)
         assert_allclose(ours.loc[name, "p"], ref.pvalues[name], rtol=1e-6)
     assert np.isnan(ours.loc["Intercept", "p_adjusted"])  # intercept not in the family
+    # default t reference: same statistic, t on n_subjects - n_fixed = 16 - 3 df
+    t_table = GroupModel(kind="mixed", formula="effect ~ group + age").fit(tables, participants)
+    t_rows = t_table.table().set_index(["channel", "term", "comparison"])
+    row = t_rows.loc[("frontal_a", "subtract", "age")]
+    assert row["df"] == 13
+    assert_allclose(row["p"], 2 * stats.t.sf(abs(ref.tvalues["age"]), 13), rtol=1e-6)
 
 
 def test_mixed_balanced_intercept_equals_ttest_on_subject_means(cohort_factory):
