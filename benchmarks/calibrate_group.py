@@ -48,7 +48,10 @@ MODELS = {
     "DL, separate tau2, normal reference": dict(
         kind="two-sample", weighting="dersimonian-laird", knapp_hartung=False
     ),
-    "mixed: effect ~ group": dict(kind="mixed", formula="effect ~ group"),
+    "mixed: effect ~ group (t, subjects df)": dict(kind="mixed", formula="effect ~ group"),
+    "mixed: effect ~ group (normal reference)": dict(
+        kind="mixed", formula="effect ~ group", mixed_reference="normal"
+    ),
 }
 
 
@@ -132,7 +135,9 @@ def _p(result, channel="frontal_a") -> float:
     return float(rows["p"].iloc[0])
 
 
-def calibrate(n_cohorts: int, n_per_group: int, seed: int, alpha: float = 0.05) -> dict:
+def calibrate(
+    n_cohorts: int, n_per_group: int, seed: int, alpha: float = 0.05, only: str = ""
+) -> dict:
     """Rejection rates per model under the null and the simulator's group difference."""
     out = {}
     for label, diff in (("null (no group difference)", 0.0), ("alternative (-5 points)", -5.0)):
@@ -143,6 +148,8 @@ def calibrate(n_cohorts: int, n_per_group: int, seed: int, alpha: float = 0.05) 
         ]
         rates = {}
         for name, options in MODELS.items():
+            if only not in name:
+                continue
             model = GroupModel(**options, influence=False, channels=("frontal_a",))
             p = np.array([_p(model.fit(t, part)) for t, part in cohorts])
             k = int(np.sum(p <= alpha))  # a test without a p-value counts as not rejected
@@ -279,6 +286,7 @@ def main() -> None:
     parser.add_argument("--cohorts", type=int, default=500)
     parser.add_argument("--n-per-group", type=int, default=8)
     parser.add_argument("--seed", type=int, default=0)
+    parser.add_argument("--only", default="", help="run only models whose label contains this")
     parser.add_argument(
         "--end-to-end",
         type=int,
@@ -310,7 +318,7 @@ def main() -> None:
         if args.skip_summary:
             return
     t0 = time.perf_counter()
-    rates = calibrate(args.cohorts, args.n_per_group, args.seed)
+    rates = calibrate(args.cohorts, args.n_per_group, args.seed, only=args.only)
     print(
         f"{args.cohorts} simulated cohorts per condition, {args.n_per_group} subjects per "
         f"group, alpha 0.05, test on frontal_a 'subtract', older - younger"
@@ -320,10 +328,11 @@ def main() -> None:
         for name, (rate, lo, hi, n_missing) in by_model.items():
             note = f"  ({n_missing} cohorts without a p-value)" if n_missing else ""
             print(f"  {name:40s} {rate:6.3f}  [{lo:.3f}, {hi:.3f}]{note}")
-    extras = null_extras(max(300, args.cohorts // 2), args.n_per_group, args.seed)
-    print()
-    for name, rate in extras.items():
-        print(f"{name:52s} {rate:6.3f}")
+    if not args.only:
+        extras = null_extras(max(300, args.cohorts // 2), args.n_per_group, args.seed)
+        print()
+        for name, rate in extras.items():
+            print(f"{name:52s} {rate:6.3f}")
     print()
     for name, value in timing(args.n_per_group, args.seed).items():
         print(f"{name:28s} {value:.6g}")
