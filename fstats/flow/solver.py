@@ -109,19 +109,22 @@ def _evaluate(u, beta_fixed, wy, w, lags, geom, observable, model=None):
             g1sq, dg_du = _g1_squared(u[:, None], lags, geom, observable)
     else:
         g1sq, dg_du = model
-    jb = w * g1sq
+    jb = g1sq
+    jb *= w  # g1² is not needed unweighted after this
     free = np.zeros(u.shape[0], dtype=bool)
+    power = np.einsum("ij,ij->i", jb, jb)
     if beta_fixed is None:
         # β enters linearly: its least-squares value for this u (variable projection),
         # kept within (0, BETA_MAX]; a clamped β acts as fixed for this step
         with np.errstate(divide="ignore", invalid="ignore"):
-            beta = np.einsum("ij,ij->i", jb, wy) / np.einsum("ij,ij->i", jb, jb)
+            beta = np.einsum("ij,ij->i", jb, wy) / power
         free = (beta > _BETA_MIN) & (beta < BETA_MAX)
         beta = np.clip(beta, _BETA_MIN, BETA_MAX)
     else:
         beta = beta_fixed
     with np.errstate(invalid="ignore"):
-        resid = wy - beta[:, None] * jb
+        resid = jb * (-beta[:, None])
+        resid += wy
         chi = np.einsum("ij,ij->i", resid, resid)
         dg_du *= w
         dg_du *= beta[:, None]
@@ -129,8 +132,8 @@ def _evaluate(u, beta_fixed, wy, w, lags, geom, observable, model=None):
     if free.any():
         # Kaufman's reduced Jacobian: remove the part of d(model)/du along the β column
         with np.errstate(divide="ignore", invalid="ignore"):
-            proj = np.einsum("ij,ij->i", ju, jb) / np.einsum("ij,ij->i", jb, jb)
-        ju = ju - np.where(free, proj, 0.0)[:, None] * jb
+            proj = np.where(free, np.einsum("ij,ij->i", ju, jb) / power, 0.0)
+        ju -= proj[:, None] * jb
     return beta, resid, chi, ju
 
 
@@ -231,11 +234,13 @@ def _lm(
         if ids.size == 0:
             break
         n_iter[ids] += 1
-        curv = np.einsum("ij,ij->i", ju, ju)
         with np.errstate(divide="ignore", invalid="ignore"):
             secant = (grad - prev_grad) / (u - prev_u)
-            curv = np.where(np.isfinite(first) & (first > 0), first, curv)
+            curv = np.where(np.isfinite(first) & (first > 0), first, np.nan)
             curv = np.where(np.isfinite(secant) & (secant > 0), secant, curv)
+            gauss = np.flatnonzero(~np.isfinite(curv))  # Gauss–Newton where nothing better
+            if gauss.size:
+                curv[gauss] = np.einsum("ij,ij->i", ju[gauss], ju[gauss])
             du = -grad / (curv * (1.0 + lam))
         first[:] = np.nan
         du = np.where(np.isfinite(du), np.clip(du, -3.0, 3.0), 0.0)
