@@ -264,7 +264,7 @@ def simulate_recording(
 
     # --- spontaneous cerebral fluctuations (1/f^β), partly shared ---------------------------
     rho = s.slow_shared_fraction
-    slow_amp = s.slow_amplitude_pct / 100.0
+    slow_amp = s.slow_amplitude_pct / 100.0 * float(rng.uniform(0.7, 1.3))
 
     shared, local_a, local_b = power_law_noise(
         n, fs, s.slow_exponent, rng, min_hz=s.slow_min_hz, max_hz=0.5, n_series=3
@@ -388,6 +388,7 @@ def simulate_recording(
         "brain_bfi_cm2_s": {name: float(b) for name, b in zip(_LONG, brain_bfi_long, strict=True)},
         "scalp_bfi_cm2_s": float(scalp_bfi),
         "systemic_lag_s": systemic_lag,
+        "slow_amplitude_pct": 100.0 * slow_amp,
         "cardiac_lag_s": cardiac_lag,
         "pulse_transit_s": transit,
         "amplitudes_pct": {k: float(v) for k, v in amplitudes.items()},

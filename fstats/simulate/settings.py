@@ -141,7 +141,8 @@ class SimulationSettings:
         Multiplies every physiological nuisance (cardiac, respiration, Mayer, drift,
         systemic low-frequency signals); 0 switches them all off.
     slow_amplitude_pct : float, default=3.0
-        Standard deviation of the spontaneous cerebral flow fluctuations, percent.
+        Standard deviation of the spontaneous cerebral flow fluctuations, percent
+        (each recording draws 0.7-1.3 times this).
     slow_exponent : float, default=1.0
         Spectral exponent β of those fluctuations (power ∝ 1/f^β).
     slow_min_hz : float, default=0.002
