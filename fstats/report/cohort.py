@@ -17,7 +17,12 @@ from urllib.parse import urlsplit
 import pandas as pd
 
 from fstats.report import _access
-from fstats.report.figures_cohort import courses_figure, effects_figure, forest_figure
+from fstats.report.figures_cohort import (
+    MAX_FOREST_PANELS,
+    courses_figure,
+    effects_figure,
+    forest_figure,
+)
 from fstats.report.render import (
     CAUTION,
     PNG_DPI,
@@ -154,11 +159,19 @@ def cohort_report(
                 )
             )
             pooled = effects if {"ci_low", "ci_high"} <= set(effects.columns) else None
+            shown = (
+                ""
+                if len(panels) <= MAX_FOREST_PANELS
+                else (
+                    f" First {MAX_FOREST_PANELS} of {len(panels)} channel × term pairs; "
+                    "all are in the table below the figure."
+                )
+            )
             store.add(
                 "forest",
                 forest_figure(estimates, panels, pooled=pooled, unit_label=unit),
                 "Per-subject estimates with 95 % intervals (estimate ± 1.96 SE); "
-                "diamond: group estimate and its confidence interval.",
+                "diamond: group estimate and its confidence interval." + shown,
             )
         if not table.empty and {"estimate", "ci_low", "ci_high"} <= set(table.columns):
             store.add(
@@ -289,5 +302,20 @@ def _cohort_context(
         "effects_table": table_rows(effects, _EFFECT_COLUMNS),
         "comparisons_table": table_rows(comparisons, _EFFECT_COLUMNS),
         "influence_table": influence_table,
+        "estimates_table": table_rows(
+            estimates,
+            [
+                ("channel", "channel", "text"),
+                ("term", "term", "text"),
+                ("participant_id", "participant", "text"),
+                ("group", "group", "text"),
+                ("estimate", "estimate", "num"),
+                ("se", "SE", "num"),
+                ("weight", "weight", "num"),
+                ("n_runs", "runs", "int"),
+            ],
+        )
+        if isinstance(estimates, pd.DataFrame) and not estimates.empty
+        else None,
         "subject_links": links,
     }

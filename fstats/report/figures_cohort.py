@@ -13,7 +13,10 @@ import pandas as pd
 
 from fstats.report.style import new_figure, plain_label, series_style
 
-__all__ = ["forest_figure", "effects_figure", "courses_figure"]
+__all__ = ["forest_figure", "effects_figure", "courses_figure", "MAX_FOREST_PANELS"]
+
+#: Forest plot panels drawn at most (channel × term pairs); the rest are in the tables.
+MAX_FOREST_PANELS = 6
 
 _Z95 = 1.959963984540054  # standard normal 97.5 % quantile
 
@@ -37,14 +40,14 @@ def forest_figure(
         Columns ``channel, term, participant_id, estimate, se`` and optionally ``group``.
         Intervals are ``estimate ± 1.96 se``.
     panels : sequence of (channel, term)
-        Which panels to draw, in order (at most nine are drawn).
+        Which panels to draw, in order (at most six are drawn).
     pooled : DataFrame, optional
         Group rows (``channel, term, estimate, ci_low, ci_high``) drawn as a diamond
         below the subjects.
     unit_label : str
         x-axis label with unit.
     """
-    panels = list(panels)[:9]
+    panels = list(panels)[:MAX_FOREST_PANELS]
     ncols = min(3, max(1, len(panels)))
     nrows = -(-max(1, len(panels)) // ncols)
     if "group" not in estimates.columns:
@@ -58,7 +61,7 @@ def forest_figure(
     ids = list(order["participant_id"].astype(str))
     ypos = {pid: len(ids) - i for i, pid in enumerate(ids)}
     styles = _group_styles(order["group"])
-    height = 1.2 + nrows * (0.9 + 0.2 * len(ids))
+    height = 1.2 + nrows * (0.9 + min(0.2, 5.0 / max(len(ids), 1)) * len(ids))
     fig, axes = new_figure(
         3.2 * ncols + 1.2, height, nrows=nrows, ncols=ncols, sharey=True, squeeze=False
     )
