@@ -31,6 +31,7 @@ __all__ = [
     "fit_ar",
     "whiten",
     "whitened_rows",
+    "Whitener",
     "default_max_ar_order",
 ]
 
@@ -281,3 +282,37 @@ def whiten(values: np.ndarray, coefs: np.ndarray, valid: np.ndarray) -> np.ndarr
         kernel = b.reshape((-1,) + (1,) * (x.ndim - 1))
         filtered = signal.oaconvolve(x, kernel, mode="full", axes=0)[: x.shape[0]]
     return filtered[whitened_rows(valid, b.size - 1)]
+
+
+class Whitener:
+    """Repeated AR prewhitening of the same columns with changing filters.
+
+    The columns' FFT is computed once; each :meth:`apply` multiplies by the filter's
+    transfer function and transforms back, so an AR-IRLS loop pays one inverse FFT
+    per AR update instead of a convolution.  Rows that need a missing or a
+    pre-record sample are dropped, as in :func:`whiten`.
+
+    Parameters
+    ----------
+    values : ndarray, shape (n_times, n_columns)
+        Columns to whiten (rows where ``valid`` is False are ignored).
+    valid : ndarray of bool, shape (n_times,)
+        Rows with data.
+    """
+
+    def __init__(self, values: np.ndarray, valid: np.ndarray) -> None:
+        self.valid = np.asarray(valid, dtype=bool)
+        x = np.where(self.valid[:, None], values, 0.0)
+        self.n_times = x.shape[0]
+        self.n_fft = _fft.next_fast_len(self.n_times, real=True)
+        self.spectrum = _fft.rfft(x, n=self.n_fft, axis=0)
+
+    def apply(self, coefs: np.ndarray) -> np.ndarray:
+        """Whitened rows for AR coefficients ``coefs`` (shape (p,)), shape (n_kept, n_columns).
+
+        Circular wrap-around only touches the first p rows, which are dropped.
+        """
+        b = np.concatenate([[1.0], -np.asarray(coefs, dtype=float)])
+        transfer = _fft.rfft(b, n=self.n_fft)
+        out = _fft.irfft(self.spectrum * transfer[:, None], n=self.n_fft, axis=0)
+        return out[: self.n_times][whitened_rows(self.valid, b.size - 1)]

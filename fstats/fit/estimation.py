@@ -7,7 +7,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import fft
 
-from fstats.fit.autoregressive import fit_ar, whiten, whitened_rows
+from fstats.fit.autoregressive import Whitener, fit_ar, whitened_rows
 from fstats.fit.covariance import SpectralCovariance, spectral_sandwich
 from fstats.fit.ols import design_rank, ordinary_least_squares
 from fstats.fit.robust import TUKEY_C, irls, weighted_least_squares
@@ -165,9 +165,12 @@ def estimate_channel(
     valid = _check_inputs(flow, design)
     n_times, k = design.shape
     y, x = flow[valid], design[valid]
-    ols = ordinary_least_squares(y, x)
-    betas = ols.betas[:, 0]
     nan = np.full(n_times, np.nan)
+    if method != "ols":
+        betas = weighted_least_squares(y, x)[0]
+    else:
+        ols = ordinary_least_squares(y, x)
+        betas = ols.betas[:, 0]
     if method == "ols":
         fitted = _masked(design, betas, valid)
         resid = np.where(valid, flow - fitted, np.nan)
@@ -188,6 +191,7 @@ def estimate_channel(
         )
     flow0 = np.where(valid, flow, 0.0)
     design0 = np.where(valid[:, None], design, 0.0)
+    whitener = Whitener(np.column_stack([flow0, design0]), valid)
     converged = False
     weights_w = None
     ar = None
@@ -199,10 +203,10 @@ def estimate_channel(
         kept = whitened_rows(valid, ar.order)
         if kept.sum() <= k:
             raise ChannelFitError(f"too few samples left after AR({ar.order}) whitening")
-        yw = whiten(flow0, ar.coefs, valid)
-        xw = whiten(design0, ar.coefs, valid)
+        joint = whitener.apply(ar.coefs)
+        yw, xw = joint[:, 0], joint[:, 1:]
         if method == "ar-irls":
-            fit = irls(yw, xw, c=tukey_c, betas=betas)
+            fit = irls(yw, xw, c=tukey_c, betas=betas, tol=0.1 * tol)
             new, weights_w, scale_w = fit.betas, fit.weights, fit.scale
         else:
             new, _ = weighted_least_squares(yw, xw)
@@ -228,9 +232,7 @@ def estimate_channel(
         bread = xtwx_inv
         if method == "ar-irls":
             bread = _bisquare_bread(xw, ew, scale_w, tukey_c, xtwx_inv)
-        spectral = spectral_sandwich(
-            xw, ew, weights_w, xtwx_inv, smoothing_bins=bins, bread=bread
-        )
+        spectral = spectral_sandwich(xw, ew, weights_w, xtwx_inv, smoothing_bins=bins, bread=bread)
         cov = spectral.cov
     fitted = _masked(design, betas, valid)
     resid = np.where(valid, flow - fitted, np.nan)

@@ -67,7 +67,11 @@ def mad_scale(residuals: np.ndarray) -> float:
 
 
 def weighted_least_squares(
-    response: np.ndarray, design: np.ndarray, weights: np.ndarray | None = None
+    response: np.ndarray,
+    design: np.ndarray,
+    weights: np.ndarray | None = None,
+    *,
+    unit_columns: bool = False,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Weighted least squares by Cholesky on column-scaled normal equations.
 
@@ -79,6 +83,8 @@ def weighted_least_squares(
         Regressors (full column rank; checked by the caller).
     weights : ndarray, shape (n,), optional
         Non-negative row weights (1 when omitted).
+    unit_columns : bool, default=False
+        The columns already have unit length (skip the scaling).
 
     Returns
     -------
@@ -87,12 +93,21 @@ def weighted_least_squares(
     xtwx_inv : ndarray, shape (k, k)
         ``(X' W X)^-1``.
     """
-    norms = np.sqrt(np.einsum("ij,ij->j", design, design))
-    norms[norms == 0] = 1.0
-    xs = design / norms
-    xw = xs if weights is None else xs * weights[:, None]
-    gram = xw.T @ xs
-    rhs = xw.T @ response
+    if unit_columns:
+        norms = np.ones(design.shape[1])
+        xs = design
+    else:
+        norms = np.sqrt(np.einsum("ij,ij->j", design, design))
+        norms[norms == 0] = 1.0
+        xs = design / norms
+    if weights is None:
+        gram = xs.T @ xs
+        rhs = xs.T @ response
+    else:
+        root = np.sqrt(weights)
+        xw = xs * root[:, None]
+        gram = xw.T @ xw  # symmetric rank-k update
+        rhs = xw.T @ (root * response)
     factor = linalg.cho_factor(gram, check_finite=False)
     betas = linalg.cho_solve(factor, rhs, check_finite=False) / norms
     inv = linalg.cho_solve(factor, np.eye(gram.shape[0]), check_finite=False)
@@ -164,9 +179,13 @@ def irls(
     ``w = bisquare(e / s)``, then ``β = (X'WX)^-1 X'Wy`` (Holland & Welsch 1977,
     recalled from memory; the order of operations of statsmodels ``RLM``).
     """
+    norms = np.sqrt(np.einsum("ij,ij->j", design, design))
+    norms[norms == 0] = 1.0
+    scaled = design / norms  # unit-length columns: the WLS steps skip their own scaling
     if betas is None:
         betas, _ = weighted_least_squares(response, design)
-    betas = np.asarray(betas, dtype=float)
+    betas = np.asarray(betas, dtype=float) * norms
+    design = scaled
     converged = False
     weights = np.ones(response.shape[0])
     inv = None
@@ -178,11 +197,11 @@ def irls(
         scale = mad_scale(resid)
         if not scale > 0:
             weights = np.ones(response.shape[0])
-            betas, inv = weighted_least_squares(response, design, None)
+            betas, inv = weighted_least_squares(response, design, None, unit_columns=True)
             converged = True
             break
         weights = tukey_bisquare_weights(resid / scale, c)
-        new, inv = weighted_least_squares(response, design, weights)
+        new, inv = weighted_least_squares(response, design, weights, unit_columns=True)
         step = np.linalg.norm(design @ (new - betas)) / max(np.linalg.norm(resid), 1e-300)
         betas = new
         if step < tol:
@@ -191,10 +210,10 @@ def irls(
     resid = response - design @ betas
     scale = mad_scale(resid)
     return IRLSResult(
-        betas=betas,
+        betas=betas / norms,
         weights=weights,
         scale=scale,
-        xtwx_inv=inv,
+        xtwx_inv=inv / np.outer(norms, norms),
         n_iter=n_iter,
         converged=converged,
     )

@@ -31,11 +31,18 @@ def block_recording(seed=0, *, n_blocks=8, sfreq_hz=10.0, effect=0.1, noise=0.02
         Channel("frontal_b", 3.0, False),
     )
     events = TaskTiming(onsets, np.full(n_blocks, 30.0), ("task",) * n_blocks, np.ones(n_blocks))
-    rec = Recording(times_s=times, flow=np.column_stack(flows), channels=channels,
-                    events=events, source="synthetic", subject="sub-01")
+    rec = Recording(
+        times_s=times,
+        flow=np.column_stack(flows),
+        channels=channels,
+        events=events,
+        source="synthetic",
+        subject="sub-01",
+    )
     n = times.size
-    cols = [box, np.ones(n)] + [np.cos(np.pi * k * (2 * np.arange(n) + 1) / (2 * n))
-                                for k in (1, 2, 3)]
+    cols = [box, np.ones(n)] + [
+        np.cos(np.pi * k * (2 * np.arange(n) + 1) / (2 * n)) for k in (1, 2, 3)
+    ]
     names = ("task", "constant", "drift_01", "drift_02", "drift_03")
     kinds = ("task", "constant", "drift", "drift", "drift")
     values = np.column_stack(cols)
@@ -43,6 +50,12 @@ def block_recording(seed=0, *, n_blocks=8, sfreq_hz=10.0, effect=0.1, noise=0.02
         Contrast("task", np.array([[1.0, 0, 0, 0, 0]]), "t"),
         Contrast("task_F", np.array([[1.0, 0, 0, 0, 0]]), "F"),
     )
-    design = DesignMatrix(values=values, names=names, kinds=kinds, times_s=times,
-                          conditions={"task": ("task",)}, contrasts=contrasts)
+    design = DesignMatrix(
+        values=values,
+        names=names,
+        kinds=kinds,
+        times_s=times,
+        conditions={"task": ("task",)},
+        contrasts=contrasts,
+    )
     return rec, design

@@ -60,8 +60,9 @@ def test_sandwich_catches_slow_noise_the_model_variance_misses():
     amp = np.where(freqs > 0, 1.0 / np.sqrt(np.maximum(freqs, 1e-4)), 0.0)
     est, model_var, spec_var = [], [], []
     for _ in range(300):
-        noise = fft.irfft(amp * (rng.standard_normal(freqs.size)
-                                 + 1j * rng.standard_normal(freqs.size)), n=n)
+        noise = fft.irfft(
+            amp * (rng.standard_normal(freqs.size) + 1j * rng.standard_normal(freqs.size)), n=n
+        )
         y = noise / noise.std() * 0.5 + rng.standard_normal(n)
         betas, inv = weighted_least_squares(y, x)
         resid = y - x @ betas

@@ -41,8 +41,14 @@ def test_fixed_order_ar_matches_glsar_iterative_fit(order):
     x, y = _series(order)
     ref = GLSAR(y, x, rho=order).iterative_fit(maxiter=200, rtol=1e-12)
     ours = estimate_channel(
-        y, x, method="ar", ar_order=order, ar_estimator="adjusted", covariance="model",
-        tol=1e-13, max_iter=200,
+        y,
+        x,
+        method="ar",
+        ar_order=order,
+        ar_estimator="adjusted",
+        covariance="model",
+        tol=1e-13,
+        max_iter=200,
     )
     assert_allclose(ours.betas, ref.params, rtol=1e-8)
     assert_allclose(np.sqrt(np.diag(ours.cov)), ref.bse, rtol=1e-6)
@@ -85,8 +91,7 @@ def test_t_invariant_to_flow_scaling():
     a = estimate_channel(y, x, max_ar_order=10)
     b = estimate_channel(y * 1e-8, x, max_ar_order=10)
     assert_allclose(a.betas * 1e-8, b.betas, rtol=1e-6)
-    assert_allclose(a.betas / np.sqrt(np.diag(a.cov)), b.betas / np.sqrt(np.diag(b.cov)),
-                    rtol=1e-6)
+    assert_allclose(a.betas / np.sqrt(np.diag(a.cov)), b.betas / np.sqrt(np.diag(b.cov)), rtol=1e-6)
 
 
 @pytest.mark.parametrize(

@@ -91,8 +91,13 @@ def test_singular_and_too_wide_designs_fail_per_channel():
     """Source: common practice - rank-deficient or over-wide designs cannot be estimated."""
     rec, design = block_recording(4)
     dup = np.column_stack([design.values, design.values[:, 0]])
-    singular = replace(design, values=dup, names=design.names + ("copy",),
-                       kinds=design.kinds + ("task",), contrasts=())
+    singular = replace(
+        design,
+        values=dup,
+        names=design.names + ("copy",),
+        kinds=design.kinds + ("task",),
+        contrasts=(),
+    )
     fit = _fit(rec, singular)
     assert all("rank deficient" in f.reason for f in fit.channel_fits.values())
     short_rec = replace(rec, times_s=rec.times_s[:4], flow=rec.flow[:4])
@@ -131,16 +136,25 @@ def test_write_and_read_results_roundtrip(tmp_path):
     fit = _fit(rec, design)
     src = tmp_path / "sub-01_task-x_flow.tsv"
     src.write_text("time\n0\n")
-    tsv, sidecar = write_subject_results(fit, tmp_path / "out", "sub-01_task-x",
-                                         provenance={"inputs": [str(src)]})
+    tsv, sidecar = write_subject_results(
+        fit, tmp_path / "out", "sub-01_task-x", provenance={"inputs": [str(src)]}
+    )
     back = read_subject_results(tsv)
     table = fit.table()
     assert list(back.columns) == list(RESULT_COLUMNS)
     assert_allclose(back.estimate.to_numpy(float), table.estimate.to_numpy(float), rtol=1e-12)
     assert (back.condition == table.condition).all() and back.session.isna().all()
     meta = json.loads(sidecar.read_text())
-    for key in ("fstats_version", "created", "design", "options", "packages", "inputs",
-                "subject", "session"):
+    for key in (
+        "fstats_version",
+        "created",
+        "design",
+        "options",
+        "packages",
+        "inputs",
+        "subject",
+        "session",
+    ):
         assert key in meta
     assert meta["options"]["method"] == "ar-irls"
     assert len(meta["inputs"][str(src)]) == 64
