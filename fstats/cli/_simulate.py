@@ -60,6 +60,16 @@ def _number(low: float, *, strict: bool, unit: str):
     return parse
 
 
+def _fraction(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        value = math.nan
+    if not 0.0 <= value <= 1.0:
+        raise argparse.ArgumentTypeError(f"expected a fraction between 0 and 1, found {text!r}")
+    return value
+
+
 def _count(text: str) -> int:
     try:
         value = int(text)
@@ -107,7 +117,9 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         default=15.0,
         metavar="X",
         help="mean cerebral flow increase of the younger group under frontal_a, percent of "
-        "baseline at the plateau of a block; 0 simulates no activation (default: 15)",
+        "brain baseline flow at the plateau of a long block (for --design event: per unit of "
+        "the 1 s boxcar regressor; a single cue peaks at ~0.16 of it); 0 simulates no "
+        "activation (default: 15)",
     )
     parser.add_argument(
         "--group-effect-pct",
@@ -122,6 +134,14 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         default=4.0,
         metavar="X",
         help="between-subject standard deviation of the true effect (default: 4)",
+    )
+    parser.add_argument(
+        "--scalp-task-fraction",
+        type=_fraction,
+        default=0.5,
+        metavar="F",
+        help="share of subjects with a task-locked scalp flow and heart-rate change, 0-1 "
+        "(default: 0.5)",
     )
     parser.add_argument(
         "--duration-s",
@@ -140,7 +160,8 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument(
         "--with-g2",
         action="store_true",
-        help="also simulate raw g2 curves (100 lags, 1e-7-1e-2 s); needs --format snirf",
+        help="also simulate raw g2 curves (100 multi-tau lags, 0.1 µs to ~15 ms); needs "
+        "--format snirf",
     )
     parser.set_defaults(func=_handle)
 
@@ -162,6 +183,7 @@ def _handle(args: argparse.Namespace) -> int:
         duration_s=args.duration_s,
         sfreq_hz=args.sfreq_hz,
         effect_pct=args.effect_pct,
+        scalp_task_fraction=args.scalp_task_fraction,
         with_g2=args.with_g2,
     )
     out = simulate_cohort(
