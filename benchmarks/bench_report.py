@@ -76,10 +76,11 @@ def main() -> None:
             fit, fit_wall, _ = _timed(lambda: SubjectGLM(method=args.method).fit(recording, design))
             cache.parent.mkdir(parents=True, exist_ok=True)
             cache.write_bytes(pickle.dumps(fit))
+    fit_note = "reused from cache" if fit_wall != fit_wall else f"{fit_wall:.1f} s"
     print(
         f"recording: {recording.duration_s / 60:.1f} min, {recording.sfreq_hz:g} Hz, "
         f"{recording.n_times} samples x {len(recording.channels)} channels "
-        f"(fit {args.method}: {fit_wall:.1f} s, not counted)"
+        f"(fit {args.method}: {fit_note}, not counted)"
     )
 
     walls, cpus = [], []
