@@ -262,10 +262,17 @@ def _bisquare_bread(xw, ew, scale, c, fallback):
     """``(X̃' diag(ψ'(u)) X̃)^-1`` with ``u = ẽ / s`` and the bisquare ``ψ'`` (Huber sandwich)."""
     u = ew / scale / c
     dpsi = np.where(np.abs(u) <= 1.0, (1.0 - u * u) * (1.0 - 5.0 * u * u), 0.0)
+    norms = np.sqrt(np.einsum("ij,ij->j", xw, xw))
+    norms[norms == 0] = 1.0
+    xs = xw / norms
+    gram = (xs * dpsi[:, None]).T @ xs  # ψ' < 0 for 0.45 c < |u| < c: not a syrk
     try:
-        return weighted_least_squares(np.zeros(xw.shape[0]), xw, dpsi)[1]
+        inv = np.linalg.inv(gram)
     except np.linalg.LinAlgError:
         return fallback
+    if not np.all(np.isfinite(inv)) or np.any(np.diag(inv) <= 0):
+        return fallback
+    return inv / np.outer(norms, norms)
 
 
 def _masked(design: np.ndarray, betas: np.ndarray, valid: np.ndarray) -> np.ndarray:
