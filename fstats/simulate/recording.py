@@ -80,7 +80,9 @@ class SimulatedRecording:
         keys are described in ``notes/simulate.md`` and CONTRACTS §6.
     components : dict of str to ndarray
         Noise-free parts, each shape (n_times,) or (n_times, k): ``pulse``,
-        ``respiration``, ``mayer``, ``scalp`` (relative scalp flow), ``brain`` (n, 2),
+        ``respiration``, ``mayer``, ``scalp`` (relative scalp flow), ``scalp_systemic`` and
+        ``brain_systemic`` (the shared physiological parts before ``systemic_scale``),
+        ``brain`` (n, 2),
         ``slow`` (n, 2) spontaneous cerebral fluctuations, ``task`` (n, 2) cerebral
         response, ``scalp_task`` (n,), ``relative`` (n, 3) true relative flow of the
         channels before motion, ``motion`` (n, 3) motion factors, ``bfi_true`` (n, 3)
@@ -408,6 +410,8 @@ def simulate_recording(
         "respiration": now(resp),
         "mayer": now(mayer),
         "scalp": scalp,
+        "scalp_systemic": scalp_systemic,
+        "brain_systemic": brain_systemic,
         "brain": brain,
         "slow": slow,
         "task": task,

@@ -276,3 +276,33 @@ def test_task_locked_heart_rate_increase():
     change = _block_change(mid, rate, onsets, window=(25.0, 40.0), before=(-15.0, 0.0))
     assert sim.truth["task_heart_rate_bpm"] == 6.0
     assert change == pytest.approx(6.0, abs=2.0)
+
+
+def test_systemic_signals_reach_the_brain_with_the_set_lag():
+    """Source: common practice (cross-correlation lag estimate) - the slow systemic part of the
+    brain compartment (Mayer band, 0.05-0.15 Hz, scipy Butterworth band-pass) lags the scalp's
+    by truth['systemic_lag_s'] within 0.3 s."""
+    for seed in range(3):
+        sim = simulate_recording(SimulationSettings(with_aux=False), np.random.default_rng(seed))
+        sos = signal.butter(2, [0.05, 0.15], btype="bandpass", fs=20.0, output="sos")
+        scalp = signal.sosfiltfilt(sos, sim.components["scalp_systemic"])
+        brain = signal.sosfiltfilt(sos, sim.components["brain_systemic"])
+        lags = np.arange(0, 6 * 20)
+        xcorr = [np.dot(scalp[: scalp.size - k], brain[k:]) for k in lags]
+        assert lags[np.argmax(xcorr)] / 20.0 == pytest.approx(sim.truth["systemic_lag_s"], abs=0.3)
+
+
+def test_pulsatile_amplitude_larger_in_scalp():
+    """Source: common practice - the cardiac pulsation is stronger in scalp than in brain flow;
+    cardiac-band (0.7-3.5 Hz) relative power of the scalp channel exceeds the long channels'
+    brain-only compartment, and the long channels sit in between (mixing)."""
+    settings = SimulationSettings(noise_pct=0.0, with_motion=False, with_aux=False)
+    sim = simulate_recording(settings, np.random.default_rng(3))
+    sos = signal.butter(4, [0.7, 3.5], btype="bandpass", fs=20.0, output="sos")
+    band = lambda x: signal.sosfiltfilt(sos, x).std()  # noqa: E731
+    rel = _relative(sim)
+    scalp = band(sim.components["scalp"])
+    brain = band(sim.components["brain"][:, 0])
+    assert scalp > 1.5 * brain
+    assert brain < band(rel[:, 1]) < scalp
+    assert band(rel[:, 0]) == pytest.approx(scalp, rel=0.1)
