@@ -37,29 +37,37 @@ def block_timeline(
 ) -> TaskTiming:
     """Blocks of the demo scenario: rest, ``subtract``, ``recover``, repeated (onsets in s).
 
+    The cycle starts at 0 s with rest and repeats for the whole recording, as the task
+    program would run: every segment starting before the end is kept, the last one cut
+    short by the end of the recording (the rule of a repeating ``cycle`` in the design
+    YAML, so that a design written for the scenario matches the simulated timing).
+
     Parameters
     ----------
     duration_s : float
-        Recording length in seconds; cycles are added while a whole cycle plus a
-        final rest of ``rest_s`` fits.
+        Recording length in seconds.
     rest_s, subtract_s, recover_s : float
         Lengths of the rest, task and recovery periods in seconds.
 
     Returns
     -------
     TaskTiming
-        Alternating ``subtract`` and ``recover`` events, amplitude 1.
+        Alternating ``subtract`` and ``recover`` events (rest is not an event), amplitude 1;
+        no event extends past ``duration_s``.
     """
     cycle = rest_s + subtract_s + recover_s
-    n_cycles = max(int((duration_s - rest_s) // cycle), 0)
+    n_cycles = max(int(np.ceil(duration_s / cycle)), 0)
     starts = rest_s + cycle * np.arange(n_cycles)
     onsets = np.column_stack([starts, starts + subtract_s]).ravel()
     durations = np.tile([subtract_s, recover_s], n_cycles).astype(float)
     conditions = ("subtract", "recover") * n_cycles
+    keep = onsets < duration_s - 1e-9
+    onsets = onsets[keep]
+    durations = np.minimum(durations[keep], duration_s - onsets)
     return TaskTiming(
         onsets_s=onsets.astype(float),
         durations_s=durations,
-        conditions=conditions,
+        conditions=tuple(c for c, k in zip(conditions, keep, strict=True) if k),
         amplitudes=np.ones(onsets.size),
         source="simulated",
     )

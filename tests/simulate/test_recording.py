@@ -232,7 +232,7 @@ def test_same_seed_same_recording_and_different_seed_differs():
         first.recording.aux["ppg"].values, second.recording.aux["ppg"].values
     )
     assert json.dumps(first.truth) == json.dumps(second.truth)
-    assert not np.allclose(first.recording.flow, other.recording.flow)
+    assert not np.allclose(first.recording.flow, other.recording.flow, rtol=1e-3, atol=0.0)
 
 
 def test_event_design_has_cues_and_effect():
