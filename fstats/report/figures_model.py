@@ -16,6 +16,9 @@ from fstats.report.style import DIVERGING_CMAP, channel_style, new_figure, plain
 
 __all__ = ["design_figure", "fitted_figure", "responses_figure", "acf_figure"]
 
+#: Fixed margins (left, right, bottom, top) in inches of the full-width time-series figures.
+_MARGINS_IN = (0.85, 0.15, 0.5, 0.35)
+
 
 def design_figure(
     values: np.ndarray,
@@ -25,7 +28,7 @@ def design_figure(
     *,
     max_rows: int = 600,
 ):
-    """The design matrix as a heat map, each column scaled to a peak magnitude of 1.
+    """The design matrix as a heat map, each column scaled by its 99th-percentile magnitude.
 
     Parameters
     ----------
@@ -40,8 +43,12 @@ def design_figure(
         Rows are block-averaged down to this many before drawing.
     """
     values = np.asarray(values, dtype=float)
+    # A robust scale (99th percentile of |value|) so spiky columns (short channel) stay
+    # visible; values beyond it are clipped to ±1.
+    scale = np.nanpercentile(np.abs(values), 99, axis=0)
     peak = np.nanmax(np.abs(values), axis=0)
-    scaled = values / np.where(peak > 0, peak, 1.0)
+    scale = np.where(scale > 0, scale, np.where(peak > 0, peak, 1.0))
+    scaled = np.clip(values / scale, -1.0, 1.0)
     thinned, rows = thin_rows(scaled, max_rows)
     n_reg = values.shape[1]
     width = min(14.0, max(5.0, 0.28 * n_reg + 2.5))
@@ -80,7 +87,7 @@ def design_figure(
             if i < n_reg:
                 ax.axvline(i - 0.5, color="#222222", linewidth=0.8)
             start = i
-    fig.colorbar(image, ax=ax, shrink=0.7, label="value / column peak (unitless)")
+    fig.colorbar(image, ax=ax, shrink=0.7, label="value / column scale (unitless)")
     return fig
 
 
@@ -106,7 +113,13 @@ def fitted_figure(
     """
     names = list(fitted)
     fig, axes = new_figure(
-        9.0, 1.4 + 1.6 * len(names), nrows=len(names), sharex=True, squeeze=False
+        9.0,
+        1.1 + 1.6 * len(names),
+        nrows=len(names),
+        sharex=True,
+        squeeze=False,
+        margins_in=_MARGINS_IN,
+        hspace_in=0.3,
     )
     for ax, name in zip(axes[:, 0], names, strict=False):
         shade_task_periods(ax, spans, legend=ax is axes[0, 0])
@@ -205,7 +218,13 @@ def acf_figure(
     """
     names = list(before)
     fig, axes = new_figure(
-        9.0, 0.8 + 2.1 * len(names), nrows=len(names), sharex=True, squeeze=False
+        9.0,
+        0.8 + 2.1 * len(names),
+        nrows=len(names),
+        sharex=True,
+        squeeze=False,
+        margins_in=_MARGINS_IN,
+        hspace_in=0.45,
     )
     band = 1.96 / np.sqrt(max(n_times, 1))
     for ax, name in zip(axes[:, 0], names, strict=False):

@@ -19,6 +19,8 @@ from fstats.report.style import channel_style, condition_fill, new_figure, plain
 __all__ = ["flow_traces_figure", "spectra_figure", "weights_figure", "shade_task_periods"]
 
 _MOTION_COLOR = "#7b2d4f"
+#: Fixed margins (left, right, bottom, top) in inches of the full-width time-series figures.
+_MARGINS_IN = (0.85, 0.15, 0.5, 0.35)
 
 
 def shade_task_periods(ax, spans: Mapping[str, Sequence[tuple[float, float]]], *, legend=True):
@@ -94,7 +96,13 @@ def flow_traces_figure(
     names = list(flows)
     styles = _channel_styles(names, is_short)
     fig, axes = new_figure(
-        9.0, 1.5 + 1.35 * len(names), nrows=len(names), sharex=True, squeeze=False
+        9.0,
+        1.2 + 1.35 * len(names),
+        nrows=len(names),
+        sharex=True,
+        squeeze=False,
+        margins_in=_MARGINS_IN,
+        hspace_in=0.3,
     )
     for ax, name in zip(axes[:, 0], names, strict=False):
         shade_task_periods(ax, spans, legend=ax is axes[0, 0])
@@ -140,7 +148,7 @@ def spectra_figure(
     """
     names = list(spectra)
     styles = _channel_styles(names, is_short)
-    fig, ax = new_figure(9.0, 3.4)
+    fig, ax = new_figure(9.0, 3.4, margins_in=_MARGINS_IN)
     top = 0.0
     for name in names:
         freqs, psd = spectra[name]
@@ -211,7 +219,7 @@ def weights_figure(
     bin_s : float, default=1.0
         Shortest averaging bin in seconds (weights are shown as bin means).
     """
-    fig, ax = new_figure(9.0, 2.6)
+    fig, ax = new_figure(9.0, 2.6, margins_in=_MARGINS_IN)
     for start, stop in motion_spans:
         ax.axvspan(start, max(stop, start + 0.5), color=_MOTION_COLOR, alpha=0.18, linewidth=0)
     for i, (name, w) in enumerate(weights.items()):

@@ -116,7 +116,16 @@ def condition_fill(index: int) -> dict:
     }
 
 
-def new_figure(width_in: float, height_in: float, *, nrows: int = 1, ncols: int = 1, **kw):
+def new_figure(
+    width_in: float,
+    height_in: float,
+    *,
+    nrows: int = 1,
+    ncols: int = 1,
+    margins_in: tuple[float, float, float, float] | None = None,
+    hspace_in: float = 0.45,
+    **kw,
+):
     """A new Figure with an Agg canvas and its axes.
 
     Parameters
@@ -125,6 +134,12 @@ def new_figure(width_in: float, height_in: float, *, nrows: int = 1, ncols: int 
         Figure size in inches.
     nrows, ncols : int
         Subplot grid.
+    margins_in : (left, right, bottom, top), optional
+        Fixed margins in inches.  Without them the constrained layout engine places
+        the axes (better for rotated labels, slower to draw); stacked full-width
+        time-series panels use fixed margins.
+    hspace_in : float, default=0.45
+        With fixed margins: vertical gap between rows, in inches.
     **kw
         Passed to ``Figure.subplots`` (``sharex``, ``sharey``, ``squeeze``, ...).
 
@@ -133,7 +148,19 @@ def new_figure(width_in: float, height_in: float, *, nrows: int = 1, ncols: int 
     fig : Figure
     axes : Axes or ndarray of Axes
     """
-    fig = Figure(figsize=(width_in, height_in), layout="constrained")
+    if margins_in is None:
+        fig = Figure(figsize=(width_in, height_in), layout="constrained")
+    else:
+        left, right, bottom, top = margins_in
+        fig = Figure(figsize=(width_in, height_in))
+        panel_h = (height_in - bottom - top - hspace_in * (nrows - 1)) / nrows
+        fig.subplots_adjust(
+            left=left / width_in,
+            right=1.0 - right / width_in,
+            bottom=bottom / height_in,
+            top=1.0 - top / height_in,
+            hspace=hspace_in / max(panel_h, 0.1),
+        )
     FigureCanvasAgg(fig)
     axes = fig.subplots(nrows, ncols, **kw)
     for ax in fig.axes:

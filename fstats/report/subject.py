@@ -389,8 +389,8 @@ def _subject_context(recording, design, fit, store: FigureStore, max_points: int
                 motion_spans=motion,
                 max_points=max_points,
             ),
-            "Robust weights of the fitted channels; shaded: spans with weight below "
-            f"{_WEIGHT_THRESHOLD}.",
+            "Robust weights of the fitted channels (means over bins of at least 1 s); "
+            f"shaded: spans where the 1 s mean weight falls below {_WEIGHT_THRESHOLD}.",
         )
 
     # --- model layout --------------------------------------------------------
@@ -404,7 +404,8 @@ def _subject_context(recording, design, fit, store: FigureStore, max_points: int
     store.add(
         "design",
         design_figure(design.values, design.names, design.kinds, design.times_s),
-        "Design matrix: one column per regressor, each scaled to its peak magnitude; "
+        "Design matrix: one column per regressor, each scaled to its 99th-percentile "
+        "magnitude (clipped at ±1); "
         "labels on top give the regressor kind.",
     )
     vif = diag.get("vif", {}) or {}
