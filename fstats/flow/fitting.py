@@ -377,8 +377,7 @@ def _fit_chunk(
 ):
     """Screen and fit one chunk of curves, writing into the views in ``out``."""
     n_chunk, n_lags = y_all.shape
-    base_mask = np.broadcast_to(in_range, y_all.shape)
-    flags = screen_curves(y_all, base_mask, wrong_length=wrong, count_rate_hz=rate)
+    flags = screen_curves(y_all, in_range, wrong_length=wrong, count_rate_hz=rate)
     ok = ~np.any(np.stack(list(flags.values())), axis=0)
     idx = np.flatnonzero(ok)
     if idx.size == 0:
@@ -393,25 +392,34 @@ def _fit_chunk(
     beta0 = np.clip(np.mean(y[:, head] - 1.0, axis=1), 0.01, 1.5)
     b_start = beta0 if fit_beta else np.full(idx.size, float(beta))
     ratio = (y - 1.0) / b_start[:, None]
-    mask = np.broadcast_to(in_range, y.shape).copy()
-    if decay_floor is not None:
-        keep = np.sum(mask & (ratio >= decay_floor), axis=1)
-        keep = np.maximum(keep, 5)
-        rank = np.cumsum(mask, axis=1)
-        mask &= rank <= keep[:, None]
     log_lags = np.log(lags)
-    above = np.sum(mask & (ratio > np.exp(-1.0)), axis=1)  # lags where g1 > e^{-1/2}
-    rank = np.cumsum(mask, axis=1)
-    # lag index of the `above`-th and next fitted lag (robust 1/e crossing)
-    pos_lo = np.argmax(rank >= np.maximum(above, 1)[:, None], axis=1)
-    pos_hi = np.argmax(rank >= np.minimum(above + 1, mask.sum(1))[:, None], axis=1)
+    full = decay_floor is None and bool(in_range.all())  # the default: all lags, all curves
+    if full:
+        mask = None
+        above = np.sum(ratio > np.exp(-1.0), axis=1)  # lags where g1 > e^{-1/2}
+        pos_lo = np.clip(above - 1, 0, n_lags - 1)
+        pos_hi = np.clip(above, 0, n_lags - 1)
+        n_fit = np.full(idx.size, n_lags)
+    else:
+        mask = np.broadcast_to(in_range, y.shape).copy()
+        if decay_floor is not None:
+            keep = np.sum(mask & (ratio >= decay_floor), axis=1)
+            keep = np.maximum(keep, 5)
+            rank = np.cumsum(mask, axis=1)
+            mask &= rank <= keep[:, None]
+        above = np.sum(mask & (ratio > np.exp(-1.0)), axis=1)
+        rank = np.cumsum(mask, axis=1)
+        n_fit = mask.sum(1)
+        # lag index of the `above`-th and next fitted lag (robust 1/e crossing)
+        pos_lo = np.argmax(rank >= np.maximum(above, 1)[:, None], axis=1)
+        pos_hi = np.argmax(rank >= np.minimum(above + 1, n_fit)[:, None], axis=1)
     log_tau_e = 0.5 * (log_lags[pos_lo] + log_lags[pos_hi])
-    log_tau_e = np.where(above >= mask.sum(1), log_lags[pos_hi] + np.log(2.0), log_tau_e)
+    log_tau_e = np.where(above >= n_fit, log_lags[pos_hi] + np.log(2.0), log_tau_e)
     u0 = np.log(x_half[idx]) - log_tau_e
 
     if sigma is not None:
         s = np.broadcast_to(sigma, (n_chunk, n_lags))[idx]
-        w = np.where(mask, 1.0 / s, 0.0)
+        w = 1.0 / s if full else np.where(mask, 1.0 / s, 0.0)
     elif weighting == "noise-model":
         gamma = np.exp(u0) / x_e[idx]  # 1/s: g1 ≈ e^{-Γτ}, Γ = BFi0 / (BFi·τ at g1 = 1/e)
         s = g2_noise_sd(
@@ -421,10 +429,11 @@ def _fit_chunk(
             count_rate_hz=rate[idx],
             integration_time_s=t_int[idx],
         )
-        w = np.where(mask, 1.0 / s, 0.0)
+        w = 1.0 / s if full else np.where(mask, 1.0 / s, 0.0)
     else:
-        w = mask.astype(float)
-    y = np.where(mask, y, 1.0)  # masked lags carry zero weight; keep them finite
+        w = np.ones(y.shape) if full else mask.astype(float)
+    if not full:
+        y = np.where(mask, y, 1.0)  # masked lags carry zero weight; keep them finite
 
     fixed = None if fit_beta else b_start
     wy = w * (y - 1.0)
@@ -448,13 +457,17 @@ def _fit_chunk(
             u[slow], b[slow], resid[slow] = u_s, b_s, r_s
             n_iter[slow] += it_s
             converged[slow] = conv_s
-    n_used = mask.sum(axis=1)
+    n_used = n_fit
     n_par = 2 if fit_beta else 1
     chi = np.einsum("ij,ij->i", resid, resid)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        raw = np.where(w > 0, resid / w, 0.0)  # unweighted residual on the lags used
-    pair = mask[:, 1:] & mask[:, :-1]
-    diff = np.where(pair, np.diff(resid, axis=1), 0.0)
+    if full:
+        raw = np.divide(resid, w, out=np.zeros_like(resid), where=w > 0)  # unweighted
+        diff = np.diff(resid, axis=1)
+    else:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            raw = np.where(w > 0, resid / w, 0.0)  # unweighted residual on the lags used
+        pair = mask[:, 1:] & mask[:, :-1]
+        diff = np.where(pair, np.diff(resid, axis=1), 0.0)
     with np.errstate(divide="ignore", invalid="ignore"):
         misfit = chi / (0.5 * np.einsum("ij,ij->i", diff, diff))
     out["bfi"][idx] = np.exp(u)

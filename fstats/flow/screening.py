@@ -109,8 +109,8 @@ def screen_curves(
     Parameters
     ----------
     g2 : ndarray, shape (n_curves, n_lags)
-    fit_mask : ndarray of bool, shape (n_curves, n_lags) or (n_lags,)
-        Lags that take part in the fit.
+    fit_mask : ndarray of bool, shape (n_lags,) or (n_curves, n_lags)
+        Lags that take part in the fit (the same for every curve, or per curve).
     wrong_length : ndarray of bool, shape (n_curves,), optional
         From :func:`stack_curves`.
     count_rate_hz : ndarray, shape (n_curves,), optional
@@ -135,8 +135,20 @@ def screen_curves(
     Thresholds are common practice, not published values.
     """
     n_curves, n_lags = g2.shape
-    mask = np.broadcast_to(np.asarray(fit_mask, dtype=bool), g2.shape)
     wrong = np.zeros(n_curves, bool) if wrong_length is None else np.asarray(wrong_length, bool)
+    fit_mask = np.asarray(fit_mask, dtype=bool)
+    if fit_mask.ndim == 1:  # the same lags for every curve: column slices, no 2-D masks
+        cols = np.flatnonzero(fit_mask)
+        sub = g2 if cols.size == n_lags else g2[:, cols]
+        nonfinite = ~wrong & (~np.isfinite(sub).all(axis=1) | (cols.size < 3))
+        open_ = ~(wrong | nonfinite)
+        q = max(cols.size // 4, n_edge)
+        with np.errstate(invalid="ignore"):
+            head_mean = sub[:, :q].mean(axis=1) - 1.0
+            tail_mean = sub[:, -q:].mean(axis=1) - 1.0
+        return _verdicts(wrong, nonfinite, open_, head_mean, tail_mean, count_rate_hz,
+                         min_excess, max_tail_ratio)  # fmt: skip
+    mask = np.broadcast_to(fit_mask, g2.shape)
     nonfinite = ~wrong & ~np.all(np.isfinite(g2) | ~mask, axis=1)
     nonfinite |= ~wrong & (mask.sum(axis=1) < 3)
     open_ = ~(wrong | nonfinite)
@@ -153,11 +165,18 @@ def screen_curves(
     with np.errstate(invalid="ignore", divide="ignore"):
         head_mean = np.where(head, excess, 0.0).sum(axis=1) / head.sum(axis=1)
         tail_mean = np.where(tail, excess, 0.0).sum(axis=1) / tail.sum(axis=1)
+    return _verdicts(wrong, nonfinite, open_, head_mean, tail_mean, count_rate_hz,
+                     min_excess, max_tail_ratio)  # fmt: skip
+
+
+def _verdicts(wrong, nonfinite, open_, head_mean, tail_mean, count_rate_hz, min_excess,
+              max_tail_ratio):  # fmt: skip
+    """The blocking flags from the head/tail means (each curve gets its first reason)."""
     below = open_ & ~(head_mean > min_excess)
-    open_ &= ~below
+    open_ = open_ & ~below
     flat = open_ & ~(tail_mean < max_tail_ratio * head_mean)
     open_ &= ~flat
-    zero = np.zeros(n_curves, dtype=bool)
+    zero = np.zeros(wrong.size, dtype=bool)
     if count_rate_hz is not None:
         rate = np.asarray(count_rate_hz, dtype=float)
         zero = open_ & ~(rate > 0.0)
