@@ -306,3 +306,37 @@ def test_pulsatile_amplitude_larger_in_scalp():
     assert scalp > 1.5 * brain
     assert brain < band(rel[:, 1]) < scalp
     assert band(rel[:, 0]) == pytest.approx(scalp, rel=0.1)
+
+
+def _ols_z(sim):
+    """OLS t of a block regressor (simulator kernel) on frontal_a, with short channel + trend."""
+    from fstats.simulate.task import cerebral_kernel, evoked_response
+
+    rec = sim.recording
+    t = rec.times_s
+    task = evoked_response(t, rec.events, {"subtract": 1.0}, cerebral_kernel(rec.sfreq_hz))
+    rel = _relative(sim)
+    design = np.column_stack([np.ones_like(t), task, rel[:, 0], t - t.mean()])
+    coef, *_ = np.linalg.lstsq(design, rel[:, 1], rcond=None)
+    resid = rel[:, 1] - design @ coef
+    cov = np.linalg.inv(design.T @ design) * (resid @ resid) / (t.size - design.shape[1])
+    return coef[1] / np.sqrt(cov[1, 1])
+
+
+def test_null_recordings_make_ols_overconfident_but_white_noise_does_not():
+    """Source: common practice - serially correlated (1/f) noise at the block frequency inflates
+    OLS t statistics; with only white measurement noise they are standard normal (sd ≈ 1).
+    Over 40 null recordings the sd of the OLS t exceeds 2 with the default nuisances and lies
+    within 0.7-1.4 with white noise only."""
+    null = SimulationSettings(effect_pct=0.0, duration_s=600.0, sfreq_hz=10.0, with_aux=False)
+    white = SimulationSettings(
+        **{**QUIET, "noise_pct": 4.0},
+        effect_pct=0.0,
+        duration_s=600.0,
+        sfreq_hz=10.0,
+        with_aux=False,
+    )
+    z_null = [_ols_z(simulate_recording(null, np.random.default_rng(100 + i))) for i in range(40)]
+    z_white = [_ols_z(simulate_recording(white, np.random.default_rng(200 + i))) for i in range(40)]
+    assert np.std(z_null) > 2.0
+    assert 0.7 < np.std(z_white) < 1.4
