@@ -160,13 +160,16 @@ def _grid_start(wy, w, lags, geom, observable, u_guess, fixed, group):
     ww = w * w
     wwy = w * wy
     syy = np.einsum("ij,ij->i", wy, wy)
-    for g in np.unique(group):
-        rows = np.flatnonzero(group == g)
+    groups = np.unique(group)
+    for g in groups:
+        # one geometry in the chunk (the usual case): plain slices, no fancy-index copies
+        rows = slice(None) if groups.size == 1 else np.flatnonzero(group == g)
         lo, hi = np.percentile(u_guess[rows], [1.0, 99.0]) + np.array([-0.6, 0.6])
         n_grid = int(min(np.ceil((hi - lo) / _GRID_STEP), 40)) + 1
         grid = np.linspace(lo, hi, n_grid)
         step = (hi - lo) / (n_grid - 1)
-        geom_g = {k: v[rows[:1]] for k, v in geom.items()}  # (1, 1): one geometry
+        first = np.flatnonzero(group == g)[:1]
+        geom_g = {k: v[first] for k, v in geom.items()}  # (1, 1): one geometry
         with np.errstate(over="ignore", invalid="ignore", under="ignore"):
             table_g, slope_g = _g1_squared(grid[:, None], lags, geom_g, observable)
         # einsum, not BLAS: small products, and threaded BLAS costs more than it saves here
@@ -182,7 +185,7 @@ def _grid_start(wy, w, lags, geom, observable, u_guess, fixed, group):
         best = np.argmin(chi, axis=1)
         inner = (best > 0) & (best < n_grid - 1)
         j = np.clip(best, 1, n_grid - 2)
-        r = np.arange(rows.size)
+        r = np.arange(best.size)
         c_m, c_0, c_p = chi[r, j - 1], chi[r, j], chi[r, j + 1]
         # lags where even the slowest grid flow leaves a weighted model below 1e-6 (of a
         # standard deviation) carry no information on BFi for these curves
@@ -193,8 +196,12 @@ def _grid_start(wy, w, lags, geom, observable, u_guess, fixed, group):
         # with the parabola's curvature (½ d²χ²/du²) for its first Newton step
         half_curv[rows] = np.where(inner, 0.5 * (c_m - 2.0 * c_0 + c_p) / step**2, np.nan)
         start[rows] = grid[best]
-        g1sq[rows] = table_g[best]
-        dg_du[rows] = slope_g[best]
+        if groups.size == 1:
+            np.take(table_g, best, axis=0, out=g1sq)
+            np.take(slope_g, best, axis=0, out=dg_du)
+        else:
+            g1sq[rows] = table_g[best]
+            dg_du[rows] = slope_g[best]
     return start, half_curv, (g1sq, dg_du), n_needed, slowest
 
 
