@@ -218,3 +218,25 @@ def test_inputs_are_not_modified(cohort):
     GroupModel(kind="two-sample").fit(tables, participants)
     pd.testing.assert_frame_equal(tables, before[0])
     pd.testing.assert_frame_equal(participants, before[1])
+
+
+def test_weighted_two_sample_separate_tau2_from_combine_effects(cohort):
+    """Source: statsmodels combine_effects(method_re='dl') run on each group: the difference
+    of the two random-effects means, with se = sqrt(se1² + se2²) and a normal reference."""
+    tables, participants = cohort
+    res = GroupModel(kind="two-sample", weighting="dersimonian-laird", knapp_hartung=False)
+    row = _row(res.fit(tables, participants))
+    sel = tables[(tables["channel"] == "frontal_a") & (tables["term"] == "subtract")]
+    group = sel["subject"].map(participants.set_index("participant_id")["group"])
+    refs = [
+        combine_effects(
+            sel.loc[group == g, "estimate_pct"].to_numpy(),
+            sel.loc[group == g, "se_pct"].to_numpy() ** 2,
+            method_re="dl",
+        )
+        for g in ("older", "younger")
+    ]
+    se = np.hypot(refs[0].sd_eff_w_re, refs[1].sd_eff_w_re)
+    assert_allclose(row["estimate"], refs[0].mean_effect_re - refs[1].mean_effect_re, rtol=1e-10)
+    assert_allclose(row["se"], se, rtol=1e-10)
+    assert_allclose(row["p"], 2 * stats.norm.sf(abs(row["estimate"]) / se), rtol=1e-8)
