@@ -22,6 +22,7 @@ __all__ = [
     "pulse_waveform",
     "pulse_train",
     "respiration",
+    "drift",
 ]
 
 
@@ -219,3 +220,25 @@ def respiration(
     signal = depth * (np.sin(phase) + 0.25 * np.sin(2.0 * phase + 0.6))
     signal = signal - signal.mean()
     return signal / signal.std(), phase
+
+
+def drift(times_s: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+    """Slow drift: a linear trend plus one slow sinusoid (period 300-1200 s), unitless.
+
+    Parameters
+    ----------
+    times_s : ndarray, shape (n_times,)
+        Sample times in seconds.
+    rng : numpy.random.Generator
+
+    Returns
+    -------
+    ndarray, shape (n_times,)
+        g·(t/T - 1/2) + 0.5 sin(2πt/P + φ), g standard normal, T the record length;
+        multiplied by a drift amplitude (fraction of baseline) by the caller.
+    """
+    span = max(times_s[-1] - times_s[0], 1.0)
+    x = (times_s - times_s[0]) / span - 0.5
+    period = rng.uniform(300.0, 1200.0)
+    wave = np.sin(2 * np.pi * times_s / period + rng.uniform(0, 2 * np.pi))
+    return rng.standard_normal() * x + 0.5 * wave

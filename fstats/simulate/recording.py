@@ -39,6 +39,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from fstats.inputs.recording import AuxSignal, Channel, Recording
+from fstats.simulate._draws import draw_physiology
 from fstats.simulate.correlation import simulate_g2
 from fstats.simulate.fluctuations import band_noise, power_law_noise
 from fstats.simulate.measurement import (
@@ -48,7 +49,7 @@ from fstats.simulate.measurement import (
     motion_factors,
     relative_noise_std,
 )
-from fstats.simulate.physiology import beat_times, pulse_train, respiration
+from fstats.simulate.physiology import beat_times, drift, pulse_train, respiration
 from fstats.simulate.settings import CHANNEL_LAYOUT, SimulationSettings
 from fstats.simulate.task import (
     block_timeline,
@@ -94,10 +95,6 @@ class SimulatedRecording:
     components: dict
 
 
-def _pick(value, value_range, rng) -> float:
-    return float(value) if value is not None else float(rng.uniform(*value_range))
-
-
 def simulate_recording(
     settings: SimulationSettings,
     rng: np.random.Generator,
@@ -137,46 +134,14 @@ def simulate_recording(
     sys_scale = s.systemic_scale
 
     # --- per-recording physiology --------------------------------------------------------
-    heart_rate = _pick(s.heart_rate_bpm, s.heart_rate_range_bpm, rng)
-    resp_rate = _pick(s.resp_rate_hz, s.resp_rate_range_hz, rng)
-    mayer_hz = float(rng.uniform(*s.mayer_range_hz))
-    if s.brain_fraction is None:
-        w_subject = float(rng.uniform(*s.brain_fraction_range))
-        w_long = np.clip(w_subject + rng.uniform(-0.05, 0.05, 2), 0.05, 0.95)
-    else:
-        w_subject = float(s.brain_fraction)
-        w_long = np.full(2, w_subject)
-    w_short = float(s.short_brain_fraction)
-    brain_bfi = s.brain_bfi_cm2_s * math.exp(s.bfi_log_sd * rng.standard_normal())
-    brain_bfi_long = brain_bfi * np.exp(0.1 * rng.standard_normal(2))
-    scalp_bfi = s.scalp_bfi_cm2_s * math.exp(s.bfi_log_sd * rng.standard_normal())
-    systemic_lag = float(rng.uniform(*s.systemic_lag_range_s))
-    cardiac_lag = float(rng.uniform(-0.03, 0.08))
-    peak = float(
-        np.clip(s.response_peak_s + s.response_peak_jitter_s * rng.standard_normal(), 2.5, 8.0)
-    )
-    has_scalp_task = bool(rng.random() < s.scalp_task_fraction)
+    draw = draw_physiology(s, rng)
+    heart_rate, resp_rate, mayer_hz = draw.heart_rate_bpm, draw.resp_rate_hz, draw.mayer_hz
+    w_subject, w_long, w_short = draw.brain_fraction, draw.brain_fraction_long, draw.short_fraction
+    brain_bfi, brain_bfi_long, scalp_bfi = draw.brain_bfi, draw.brain_bfi_long, draw.scalp_bfi
+    systemic_lag, cardiac_lag, peak = draw.systemic_lag_s, draw.cardiac_lag_s, draw.peak_s
+    has_scalp_task, amplitudes = draw.has_scalp_task, draw.amplitudes_pct
+    mean_rates, beta = draw.mean_count_rate_hz, draw.beta
     scalp_task_pct = float(s.scalp_task_pct) if has_scalp_task else 0.0
-    amplitudes = {  # percent of baseline; cardiac peak-to-peak, the others standard deviations
-        "cardiac_scalp": s.cardiac_scalp_pct * rng.uniform(0.8, 1.2),
-        "cardiac_brain": s.cardiac_brain_pct * rng.uniform(0.8, 1.2),
-        "resp_scalp": rng.uniform(1.0, 3.0),
-        "resp_brain": rng.uniform(0.5, 1.5),
-        "mayer_scalp": rng.uniform(1.5, 3.5),
-        "mayer_brain": rng.uniform(1.0, 2.5),
-        "lowfreq_scalp": rng.uniform(1.5, 3.0),
-        "lowfreq_brain": rng.uniform(1.0, 2.0),
-        "drift_scalp": rng.uniform(1.0, 4.0),
-        "drift_brain": rng.uniform(0.5, 2.0),
-        "scalp_local": rng.uniform(0.5, 1.0),
-    }
-    mean_rates = (
-        np.concatenate(
-            [rng.uniform(*s.count_rate_short_kcps, 1), rng.uniform(*s.count_rate_long_kcps, 2)]
-        )
-        * 1e3
-    )
-    beta = rng.uniform(*s.beta_range, 3)
 
     # --- task timing and evoked responses ------------------------------------------------
     if s.design == "block":
@@ -245,8 +210,8 @@ def simulate_recording(
     def late(series, lag_s):
         return np.interp(times - lag_s, t_ext, series)
 
-    drift_s = _drift(times, rng)
-    drift_b = 0.6 * drift_s + 0.4 * _drift(times, rng)
+    drift_s = drift(times, rng)
+    drift_b = 0.6 * drift_s + 0.4 * drift(times, rng)
     a = {k: v / 100.0 for k, v in amplitudes.items()}
     scalp_systemic = (
         a["cardiac_scalp"] * now(pulse)
@@ -423,12 +388,3 @@ def simulate_recording(
         "beats_s": in_beats,
     }
     return SimulatedRecording(recording=recording, truth=truth, components=components)
-
-
-def _drift(times_s: np.ndarray, rng: np.random.Generator) -> np.ndarray:
-    """Slow drift: a linear trend plus one slow sinusoid (period 300-1200 s), unit-ish size."""
-    span = max(times_s[-1] - times_s[0], 1.0)
-    x = (times_s - times_s[0]) / span - 0.5
-    period = rng.uniform(300.0, 1200.0)
-    wave = np.sin(2 * np.pi * times_s / period + rng.uniform(0, 2 * np.pi))
-    return rng.standard_normal() * x + 0.5 * wave
