@@ -167,8 +167,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 
 def _handle(args: argparse.Namespace) -> int:
-    from fstats.simulate import SimulationSettings
-    from fstats.simulate.cohort import simulate_cohort
+    from fstats.simulate import SimulationSettings, simulate_cohort
 
     if args.with_g2 and args.fmt != "snirf":
         raise InputError(

@@ -6,6 +6,7 @@ scalp channel (1.0 cm) and two brain-sensitive channels (3.0 cm) over an activat
 and a control area.  See :mod:`fstats.simulate.recording` for the signal model.
 """
 
+from fstats.simulate.cohort import COHORT_FORMATS, GROUPS, SCENARIO, simulate_cohort
 from fstats.simulate.recording import SimulatedRecording, simulate_recording
 from fstats.simulate.settings import (
     CHANNEL_LAYOUT,
@@ -16,6 +17,10 @@ from fstats.simulate.settings import (
 )
 
 __all__ = [
+    "COHORT_FORMATS",
+    "GROUPS",
+    "SCENARIO",
+    "simulate_cohort",
     "CHANNEL_LAYOUT",
     "DESIGN_KINDS",
     "TASK_LABELS",

@@ -7,8 +7,7 @@ import pytest
 
 from fstats.errors import InputError
 from fstats.inputs import read_cohort, read_flow_table, read_recording, write_flow_table
-from fstats.simulate import SimulationSettings, simulate_recording
-from fstats.simulate.cohort import simulate_cohort
+from fstats.simulate import SimulationSettings, simulate_cohort, simulate_recording
 
 SHORT = SimulationSettings(duration_s=200.0)
 
