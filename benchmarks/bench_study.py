@@ -7,7 +7,7 @@ Measures, for a cohort of simulated recordings (default 100 subjects, 3 channels
   with 2 workers plus HTML pages; the speed-up from 1 to 2 workers;
 * peak memory: the largest sum of resident memory (VmRSS from /proc) over the
   whole process tree (main process + worker processes), sampled every 50 ms, and
-  the largest single process (``resource.getrusage(RUSAGE_CHILDREN).ru_maxrss``);
+  the largest single process (also cross-checked with ``resource.getrusage(RUSAGE_CHILDREN)``);
 * per-subject time of each step (read, design, fit, write, report) from the done
   markers, to show which stage dominates;
 * a reference: the same steps called in a plain loop in this process on the first
@@ -79,17 +79,18 @@ class _TreeMemory(threading.Thread):
 
     def __init__(self, pid: int, every_s: float = 0.05) -> None:
         super().__init__(daemon=True)
-        self.pid, self.every_s, self.peak_bytes = pid, every_s, 0
-        self._stop = threading.Event()
+        self.pid, self.every_s, self.peak_bytes, self.peak_single_bytes = pid, every_s, 0, 0
+        self._halt = threading.Event()
 
     def run(self) -> None:
-        while not self._stop.is_set():
-            total = sum(_rss_bytes(p) for p in _tree_pids(self.pid))
-            self.peak_bytes = max(self.peak_bytes, total)
-            self._stop.wait(self.every_s)
+        while not self._halt.is_set():
+            sizes = [_rss_bytes(p) for p in _tree_pids(self.pid)]
+            self.peak_bytes = max(self.peak_bytes, sum(sizes))
+            self.peak_single_bytes = max(self.peak_single_bytes, max(sizes, default=0))
+            self._halt.wait(self.every_s)
 
     def stop(self) -> int:
-        self._stop.set()
+        self._halt.set()
         self.join()
         return self.peak_bytes
 
@@ -138,7 +139,6 @@ def _run(study: Path, workers: int, *, reports: bool, force: bool = True) -> dic
     command = [sys.executable, "-m", "fstats", "-q", "run", str(study), "--workers", str(workers)]
     command += [] if reports else ["--no-reports"]
     command += ["--force"] if force else []
-    before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
     started = time.perf_counter()
     process = subprocess.Popen(command, stdout=subprocess.PIPE, stderr=subprocess.PIPE)
     sampler = _TreeMemory(process.pid)
@@ -146,13 +146,15 @@ def _run(study: Path, workers: int, *, reports: bool, force: bool = True) -> dic
     out, err = process.communicate()
     wall_s = time.perf_counter() - started
     peak = sampler.stop()
-    max_single_kib = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
     if process.returncode not in (0, 1):
         raise SystemExit(f"fstats run failed ({process.returncode}):\n{err.decode()[-3000:]}")
     output = study.parent / f"out-{study.stem}"
     record = json.loads((output / "study.json").read_text())
     steps: dict[str, list[float]] = {}
-    for marker in sorted((output / "subjects").glob("*/done.json")):
+    for subject in record["subjects"]:  # this run's subjects only
+        marker = output / "subjects" / subject["stem"] / "done.json"
+        if subject["status"] != "computed" or not marker.is_file():
+            continue
         for step, seconds in json.loads(marker.read_text()).get("stage_seconds", {}).items():
             steps.setdefault(step, []).append(seconds)
     return {
@@ -164,7 +166,8 @@ def _run(study: Path, workers: int, *, reports: bool, force: bool = True) -> dic
         "timings": record.get("timings", {}),
         "counts": record["counts"],
         "peak_tree_mb": peak / 1e6,
-        "max_process_mb": max(max_single_kib, before) / 1024 if max_single_kib > before else None,
+        "max_process_mb": sampler.peak_single_bytes / 1e6,
+        "max_rss_children_mb": resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024,
         "step_median_s": {k: statistics.median(v) for k, v in steps.items()},
         "step_total_s": {k: sum(v) for k, v in steps.items()},
     }
@@ -208,7 +211,7 @@ def main() -> None:
 
     RESULTS.mkdir(parents=True, exist_ok=True)
     cohort = _cohort(args.subjects, args.duration_s, args.sfreq_hz, args.seed)
-    work = RESULTS / "study_bench"
+    work = RESULTS / f"study_bench_{cohort.name}"
     work.mkdir(exist_ok=True)
     stats = _study_file(work, cohort, "stats", reports=False)
     pages = _study_file(work, cohort, "pages", reports=True, first=args.report_subjects)
@@ -231,7 +234,7 @@ def main() -> None:
     print("  " + ", ".join(f"{k}: {r['load_average_1min']:.1f}" for k, r in runs.items()))
     print(f"{'run':32} {'wall s':>8} {'run s':>8} {'peak tree MB':>13} {'max proc MB':>12}  counts")
     for name, run in runs.items():
-        single = f"{run['max_process_mb']:.0f}" if run["max_process_mb"] else "n/a"
+        single = f"{run['max_process_mb']:.0f}"
         print(
             f"{name:32} {run['wall_s']:8.1f} {run['run_s']:8.1f} {run['peak_tree_mb']:13.0f} "
             f"{single:>12}  {run['counts']}"
