@@ -6,7 +6,8 @@ task-locked scalp flow change in about half of the recordings.  The design is
 ``designs/subtract_blocks.yaml`` (flow response, DCT drift, short-channel and cardiac
 regressors).  For each recording the long channel over the activated area
 (``frontal_a``) is fitted with the default method (AR-IRLS, spectral covariance),
-with OLS, and with the default method but without the short-channel regressor; the
+with AR prewhitening without robust weights (``ar``), with OLS, and with the default
+method but without the short-channel regressor; the
 false-positive rate of the ``subtract`` regressor at alpha 0.05 is reported.
 
 Effect run: ``effect_pct=15`` (cerebral), so the long channel's true percent change is
@@ -75,6 +76,7 @@ def _one(task: tuple[int, float]) -> dict:
         }
         variants = {
             "default": (SubjectGLM(block_averages=False), design),
+            "ar": (SubjectGLM(method="ar", block_averages=False), design),
             "ols": (SubjectGLM(method="ols", block_averages=False), design),
             "no_short": (SubjectGLM(block_averages=False), _without_short(design)),
         }
@@ -141,7 +143,8 @@ def main(argv=None) -> int:
             seeds = [(args.seed + i + (0 if effect == 0 else 10**6), effect) for i in range(args.n)]
             results = pool.map(_one, seeds, chunksize=4)
             summary[run] = {
-                lab: _summary(results, lab, effect == 0) for lab in ("default", "ols", "no_short")
+                lab: _summary(results, lab, effect == 0)
+                for lab in ("default", "ar", "ols", "no_short")
             }
             print(run, json.dumps(summary[run], indent=1), flush=True)
     summary["seconds"] = round(time.perf_counter() - start, 1)
