@@ -254,8 +254,8 @@ def average_runs(rows: pd.DataFrame, *, weighted: bool) -> pd.DataFrame:
         Valid rows with columns ``subject, channel, term, value, value_se`` (value in the
         chosen unit, se > 0 for weighted models).
     weighted : bool
-        False: plain mean, ``se = sqrt(Σ se²) / n_runs``.  True: inverse-variance
-        (fixed-effect) mean, ``se = 1 / sqrt(Σ 1/se²)``.
+        False: plain mean, ``se = sqrt(Σ se²) / n_runs`` (NaN if any run lacks an se).
+        True: inverse-variance (fixed-effect) mean, ``se = 1 / sqrt(Σ 1/se²)``.
 
     Returns
     -------
@@ -271,9 +271,10 @@ def average_runs(rows: pd.DataFrame, *, weighted: bool) -> pd.DataFrame:
     parts = {"y": y, "s2": s2, "one": np.ones(y.size)}
     if weighted:
         parts.update(w=1.0 / s2, wy=y / s2)
+    parts["bad_se"] = (~np.isfinite(s2)).astype(float)
     frame = pd.DataFrame(parts, index=rows.index)
     frame[keys] = rows[keys]
-    sums = frame.groupby(keys, sort=False).sum().reset_index()
+    sums = frame.groupby(keys, sort=False).sum().reset_index()  # NaN se: flagged by bad_se
     n = sums["one"].to_numpy()
     if weighted:
         value = sums["wy"].to_numpy() / sums["w"].to_numpy()
@@ -281,6 +282,7 @@ def average_runs(rows: pd.DataFrame, *, weighted: bool) -> pd.DataFrame:
     else:
         value = sums["y"].to_numpy() / n
         se = np.sqrt(sums["s2"].to_numpy()) / n
+    se = np.where(sums["bad_se"].to_numpy() > 0, np.nan, se)  # a missing se stays missing
     out = sums[keys].copy()
     out["value"], out["value_se"], out["n_runs"] = value, se, n.astype(int)
     return out
