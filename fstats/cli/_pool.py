@@ -15,7 +15,7 @@ __all__ = ["register", "find_result_tables", "read_result_tables"]
 
 _DESCRIPTION = """\
 Pool subject-level results across a cohort. Each subject results table (one per
-recording, '<stem>_results.tsv', as written by 'fstats fit') holds one row per channel x
+recording, '<stem>_glm.tsv', as written by 'fstats fit') holds one row per channel x
 term with the estimate in the flow's unit (cm²/s per unit regressor) and as % change from
 baseline flow; the group model runs one test per channel x term, controls the error rate
 across all of them, and writes a tidy group table with effect sizes (Hedges' g with
@@ -37,7 +37,8 @@ correction (--correction): fdr (Benjamini-Hochberg), holm, bonferroni, none; app
   every row of the group table.
 
 inputs:
-  RESULTS              subject results TSV files, or folders searched for *_results.tsv
+  RESULTS              subject results TSV files, or folders searched for them (any
+                       .tsv whose header has the subject results columns, e.g. *_glm.tsv)
   --participants FILE  participants.tsv: participant_id (sub-XX) + covariates ('n/a' =
                        missing); needed by two-sample, interaction and covariate models
 outputs (in --out DIR, written under temporary names, then renamed):
@@ -80,7 +81,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         "results",
         nargs="+",
         metavar="RESULTS",
-        help="subject results .tsv files or folders containing *_results.tsv",
+        help="subject results .tsv files or folders containing them (e.g. *_glm.tsv)",
     )
     parser.add_argument(
         "--participants",
@@ -183,15 +184,38 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.set_defaults(func=_handler)
 
 
+_KEY_COLUMNS = ("subject", "channel", "term", "estimate_pct", "se_pct", "status")
+
+
+def _is_result_table(path: Path) -> bool:
+    try:
+        with open(path, encoding="utf-8") as stream:
+            header = stream.readline().rstrip("\r\n").split("\t")
+    except (OSError, UnicodeDecodeError):
+        return False
+    return all(column in header for column in _KEY_COLUMNS)
+
+
 def find_result_tables(paths: list[str]) -> list[Path]:
-    """Subject results files named on the command line, folders expanded (sorted)."""
+    """Subject results files named on the command line, folders expanded (sorted).
+
+    In a folder, every ``*.tsv`` whose header holds the subject results columns counts
+    (``fstats fit`` writes ``<stem>_glm.tsv``; ``*_results.tsv`` works too); group tables,
+    time courses and other TSVs are skipped by their header.
+    """
     found: list[Path] = []
     for text in paths:
         path = Path(text)
         if path.is_dir():
-            inside = sorted(p for p in path.rglob("*_results.tsv") if p.is_file())
+            inside = sorted(p for p in path.rglob("*.tsv") if p.is_file() and _is_result_table(p))
             if not inside:
-                raise InputError(path, "folder", "subject results files '*_results.tsv'", "none")
+                raise InputError(
+                    path,
+                    "folder",
+                    "subject results tables (*.tsv with columns "
+                    f"{list(_KEY_COLUMNS)}, e.g. '<stem>_glm.tsv')",
+                    "none",
+                )
             found.extend(inside)
         elif path.is_file():
             found.append(path)

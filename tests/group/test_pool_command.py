@@ -82,4 +82,4 @@ def test_pool_empty_folder(tmp_path, capsys):
     """Source: common practice - a folder without results is refused, naming the pattern."""
     code = main(["pool", str(tmp_path), "--out", str(tmp_path / "out")])
     assert code == 2
-    assert "*_results.tsv" in capsys.readouterr().err
+    assert "subject results tables" in capsys.readouterr().err
