@@ -15,6 +15,8 @@ reader                     file
 ``read_channels``          ``<stem>_channels.tsv`` (:mod:`~fstats.inputs.channels`)
 ``read_events``            BIDS ``events.tsv`` (:mod:`~fstats.inputs.events`)
 ``read_aux``               ``<stem>_aux.tsv``
+``read_flow_mask``         ``<stem>_flowmask.tsv`` (:mod:`~fstats.inputs.masks`; read by
+                           ``read_flow_table`` into ``provenance["flow"]["masks"]``)
 ``read_snirf``             ``<stem>_dcs.snirf``, DCS dataTypes 410/401 (:mod:`~fstats.inputs.snirf`)
 ``read_participants``      ``participants.tsv`` (:mod:`~fstats.inputs.cohort`)
 ``find_recordings``,       a cohort folder: ``participants.tsv`` + ``sub-<label>/`` folders
@@ -22,7 +24,7 @@ reader                     file
 =========================  ==================================================================
 
 Writers (``write_flow_table``, ``write_snirf``, ``write_channels``, ``write_events``,
-``write_aux``) write files the readers read back to identical arrays.
+``write_aux``, ``write_flow_mask``) write files the readers read back to identical arrays.
 """
 
 from fstats.inputs.channels import CHANNEL_ROLES, read_channels, write_channels
@@ -35,6 +37,7 @@ from fstats.inputs.cohort import (
     read_recording,
 )
 from fstats.inputs.events import read_events, write_events
+from fstats.inputs.masks import read_flow_mask, write_flow_mask
 from fstats.inputs.recording import (
     FLOW_UNITS,
     SHORT_SEPARATION_THRESHOLD_CM,
@@ -63,6 +66,7 @@ __all__ = [
     "read_channels",
     "read_cohort",
     "read_events",
+    "read_flow_mask",
     "read_flow_table",
     "read_participants",
     "read_recording",
@@ -70,6 +74,7 @@ __all__ = [
     "write_aux",
     "write_channels",
     "write_events",
+    "write_flow_mask",
     "write_flow_table",
     "write_snirf",
 ]

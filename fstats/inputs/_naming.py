@@ -33,7 +33,7 @@ def recording_stem(path: str | Path) -> str:
 
 
 def sidecar_path(path: str | Path, kind: str) -> Path:
-    """Path of a sidecar (``kind`` = ``channels``, ``events`` or ``aux``) beside a data file."""
+    """Path of a sidecar (``kind`` = ``channels``, ``events``, ``aux``, ``flowmask``) by stem."""
     path = Path(path)
     return path.with_name(f"{recording_stem(path)}_{kind}.tsv")
 

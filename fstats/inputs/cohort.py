@@ -101,7 +101,7 @@ def read_recording(path: str | Path, **kwargs) -> Recording:
     if suffix == ".snirf":
         return read_snirf(path, **kwargs)
     if suffix in (".tsv", ".csv"):
-        for sidecar in ("_channels", "_events", "_aux"):
+        for sidecar in ("_channels", "_events", "_aux", "_flowmask"):
             if path.stem.endswith(sidecar):
                 raise InputError(
                     path,

@@ -4,9 +4,9 @@ A flow table has a ``time`` column (s) and one column per channel holding BFi in
 (or relative flow, baseline 1, when the channel sidecar says ``units = relative``).  The
 separator follows the extension (tab for ``.tsv``, comma for ``.csv``) and is checked
 against the header.  ``n/a`` or empty cells are missing samples.  The sidecars
-``<stem>_channels.tsv`` (required), ``<stem>_events.tsv`` and ``<stem>_aux.tsv``
-(optional) are found by stem.  See :mod:`fstats.inputs._validate` for what is repaired
-and what is refused.
+``<stem>_channels.tsv`` (required), ``<stem>_events.tsv``, ``<stem>_aux.tsv`` and
+``<stem>_flowmask.tsv`` (optional; :mod:`fstats.inputs.masks`) are found by stem.  See
+:mod:`fstats.inputs._validate` for what is repaired and what is refused.
 """
 
 from __future__ import annotations
@@ -28,6 +28,7 @@ from fstats.inputs._tabular import (
 from fstats.inputs._validate import check_flow_values, clean_times, fill_missing, regular_grid
 from fstats.inputs.channels import read_channel_table, write_channels
 from fstats.inputs.events import read_events, write_events
+from fstats.inputs.masks import read_flow_mask, write_flow_mask
 from fstats.inputs.recording import (
     FLOW_UNITS,
     SHORT_SEPARATION_THRESHOLD_CM,
@@ -117,6 +118,9 @@ def read_flow_table(
     Recording
         On a regular time base; repairs listed in ``provenance["repairs"]`` and NaN runs
         left in place in ``provenance["missing_samples"]`` (channel -> [[start_s, stop_s]]).
+        When ``<stem>_flowmask.tsv`` exists beside ``path`` (written by ``fstats
+        flowfit``), its 0/1 columns are in ``provenance["flow"]["masks"]["exclude"]``
+        (bool, shape (n_times, n_channels), channel order).
 
     Raises
     ------
@@ -181,6 +185,12 @@ def read_flow_table(
     if aux is not None:
         files["aux"] = str(aux)
         aux_signals = read_aux(aux)
+    provenance = {"repairs": repairs, "missing_samples": kept, "files": files}
+    mask_path = sidecar_path(path, "flowmask")
+    if mask_path.is_file():
+        files["flowmask"] = str(mask_path)
+        exclude = read_flow_mask(mask_path, times, [c.name for c in channel_list])
+        provenance["flow"] = {"masks": {"exclude": exclude}}
     subject, session = stem_entities(recording_stem(path))
     return Recording(
         times_s=times,
@@ -192,7 +202,7 @@ def read_flow_table(
         source=str(path),
         subject=subject,
         session=session,
-        provenance={"repairs": repairs, "missing_samples": kept, "files": files},
+        provenance=provenance,
     )
 
 
@@ -258,13 +268,29 @@ def _shared_aux_times(aux: dict[str, AuxSignal]) -> np.ndarray:
     return signals[0].times_s
 
 
+def _exclude_mask(recording: Recording) -> np.ndarray | None:
+    flow_prov = recording.provenance.get("flow")
+    masks = flow_prov.get("masks") if isinstance(flow_prov, dict) else None
+    exclude = masks.get("exclude") if isinstance(masks, dict) else None
+    if exclude is None:
+        return None
+    exclude = np.asarray(exclude)
+    if exclude.shape != recording.flow.shape:
+        raise ValueError(
+            f"provenance['flow']['masks']['exclude'] has shape {exclude.shape}, "
+            f"the flow {recording.flow.shape}"
+        )
+    return exclude.astype(bool)
+
+
 def write_flow_table(recording: Recording, path: str | Path) -> Path:
     """Write a recording as a flow table plus its sidecars, all sharing the file's stem.
 
     Writes ``path`` (``time`` + one column per channel; TSV or CSV by extension),
-    ``<stem>_channels.tsv``, and, when present, ``<stem>_events.tsv`` and
-    ``<stem>_aux.tsv``.  Numbers are written with full precision so that reading back
-    gives identical arrays.  Raw g2 curves and count rates are not written (use
+    ``<stem>_channels.tsv``, and, when present, ``<stem>_events.tsv``,
+    ``<stem>_aux.tsv`` and ``<stem>_flowmask.tsv`` (from
+    ``provenance["flow"]["masks"]["exclude"]``).  Numbers are written with full precision
+    so that reading back gives identical arrays.  Raw g2 curves and count rates are not written (use
     :func:`~fstats.inputs.snirf_writer.write_snirf`).
     Each file is written under a temporary name and then renamed.
 
@@ -285,6 +311,7 @@ def write_flow_table(recording: Recording, path: str | Path) -> Path:
         raise ValueError(f"flow table must end in .tsv or .csv, got {path.name!r}")
     if recording.aux:
         _shared_aux_times(recording.aux)  # refuse before writing anything
+    exclude = _exclude_mask(recording)
     if recording.g2 is not None or recording.count_rate_hz is not None:
         logger.info(
             "%s: g2 curves and count rates are not written to flow tables; use write_snirf", path
@@ -296,5 +323,9 @@ def write_flow_table(recording: Recording, path: str | Path) -> Path:
         write_events(recording.events, sidecar_path(path, "events"))
     if recording.aux:
         write_aux(recording.aux, sidecar_path(path, "aux"))
+    if exclude is not None:
+        write_flow_mask(
+            recording.times_s, recording.channel_names, exclude, sidecar_path(path, "flowmask")
+        )
     columns = {name: recording.flow[:, i] for i, name in enumerate(recording.channel_names)}
     return _write_table(path, recording.times_s, columns)

@@ -1,0 +1,132 @@
+"""Per-sample exclusion masks beside a flow table: ``<stem>_flowmask.tsv``.
+
+``fstats flowfit`` writes this sidecar next to the flow it fitted from g2 curves: a
+tab-separated table with a ``time`` column (s, the flow table's sample times) and one column
+per channel holding ``1`` for a sample to exclude or down-weight (bad curve, poor fit, low
+count rate, motion) and ``0`` otherwise.  :func:`~fstats.inputs.tables.read_flow_table`
+reads it, when present, into ``Recording.provenance["flow"]["masks"]["exclude"]``.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from fstats.errors import InputError, suggest
+from fstats.inputs._tabular import float_column, read_delimited, write_text_atomic
+
+__all__ = ["read_flow_mask", "write_flow_mask"]
+
+_FLAGS = {"0": False, "1": True}
+
+
+def read_flow_mask(
+    path: str | Path, times_s: np.ndarray, channel_names: tuple[str, ...] | list[str]
+) -> np.ndarray:
+    """The exclusion mask of a flow table, checked against the table's times and channels.
+
+    Parameters
+    ----------
+    path : str or Path
+        The ``<stem>_flowmask.tsv`` sidecar: ``time`` (s) + one 0/1 column per channel.
+    times_s : ndarray, shape (n_times,)
+        Sample times of the flow (s); the mask must have one row per sample at the same
+        time (within a quarter of the sample step).
+    channel_names : sequence of str, length n_channels
+        The flow's channels; the mask must have exactly these columns (in any order).
+
+    Returns
+    -------
+    ndarray of bool, shape (n_times, n_channels)
+        True where a sample is to be excluded, columns in ``channel_names`` order.
+
+    Raises
+    ------
+    InputError
+        One line naming the mask file and the line/column at fault.
+    """
+    path = Path(path)
+    times_s = np.asarray(times_s, dtype=float)
+    names = list(channel_names)
+    table = read_delimited(path, what="a flow mask")
+    expected_header = ["time", *names]
+    if set(table.header) != set(expected_header):
+        missing = [n for n in expected_header if n not in table.header]
+        extra = [n for n in table.header if n not in expected_header]
+        hint = suggest(extra[0], expected_header) if extra else None
+        raise InputError(
+            path,
+            "line 1 (header)",
+            f"'time' and the flow table's channels {names}",
+            list(table.header),
+            hint=hint or (f"missing {missing}" if missing else None),
+        )
+    times = float_column(table, "time", allow_missing=False)
+    if times.size != times_s.size:
+        # the first surplus row, or the line after the last row when rows are missing
+        extra = times.size > times_s.size
+        line = int(table.lines[times_s.size]) if extra else int(table.lines[-1]) + 1
+        raise InputError(
+            path,
+            f"line {line}",
+            f"{times_s.size} rows, one per flow sample",
+            f"{times.size} rows",
+        )
+    step = float(np.median(np.diff(times_s))) if times_s.size > 1 else 1.0
+    off = np.flatnonzero(~(np.abs(times - times_s) <= 0.25 * step))
+    if off.size:
+        row = int(off[0])
+        raise InputError(
+            path,
+            f"line {table.lines[row]}, column 'time'",
+            f"the flow sample time {float(times_s[row])!r} s",
+            float(times[row]),
+        )
+    mask = np.zeros((times_s.size, len(names)), dtype=bool)
+    for c, name in enumerate(names):
+        position = table.index(name)
+        for row, cells in enumerate(table.rows):
+            flag = _FLAGS.get(cells[position])
+            if flag is None:
+                raise InputError(
+                    path,
+                    f"line {table.lines[row]}, column {name!r}",
+                    "0 (keep) or 1 (exclude)",
+                    cells[position],
+                )
+            mask[row, c] = flag
+    return mask
+
+
+def write_flow_mask(
+    times_s: np.ndarray,
+    channel_names: tuple[str, ...] | list[str],
+    exclude: np.ndarray,
+    path: str | Path,
+) -> Path:
+    """Write an exclusion mask as ``<stem>_flowmask.tsv`` (read by :func:`read_flow_mask`).
+
+    Parameters
+    ----------
+    times_s : ndarray, shape (n_times,)
+        Sample times (s).
+    channel_names : sequence of str, length n_channels
+        Column names.
+    exclude : ndarray of bool, shape (n_times, n_channels)
+        True where a sample is to be excluded or down-weighted.
+    path : str or Path
+        Destination; written under a temporary name, then renamed.
+
+    Returns
+    -------
+    Path
+        ``path``.
+    """
+    exclude = np.asarray(exclude, dtype=bool)
+    lines = ["\t".join(["time", *channel_names])]
+    lines.extend(
+        "\t".join([repr(float(t)), *("1" if x else "0" for x in row)])
+        for t, row in zip(np.asarray(times_s, dtype=float), exclude.tolist(), strict=True)
+    )
+    return write_text_atomic(path, "\n".join(lines) + "\n")
