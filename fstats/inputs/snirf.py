@@ -34,7 +34,8 @@ count rates (photons per second, the detected intensity) are stored as dataType 
 (continuous-wave amplitude) with ``dataUnit`` ``Hz`` for the same channel, last.  Measurements
 of other data types are ignored with a log message; a file with none of 401/410 is refused.
 A file with g2 but no BFi gives a Recording whose flow is all NaN
-(``provenance["flow_missing"] = True``) for the flow stage to fill.  Time stamps and
+(``provenance["flow_missing"] = True``) for the flow stage to fill; the writer writes such
+a g2-only file for a recording whose flow is all NaN.  Time stamps and
 values pass the checks of :mod:`fstats.inputs._validate`.
 """
 

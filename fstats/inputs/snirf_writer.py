@@ -25,7 +25,10 @@ def write_snirf(recording: Recording, path: str | Path) -> Path:
     The flow is written as dataType 410 (``dataUnit`` = the recording's flow unit), then g2
     (when present) as dataType 401, one measurement per channel and lag with
     ``dataTypeIndex`` = lag number (1-based) into ``probe/correlationTimeDelays`` (s), then
-    count rates (when present) as dataType 1 with ``dataUnit`` ``Hz``.
+    count rates (when present) as dataType 1 with ``dataUnit`` ``Hz``.  A recording whose
+    flow is all NaN (g2 curves not yet fitted, ``provenance["flow_missing"]``) is written
+    without 410 measurements: a g2-only file, which :func:`~fstats.inputs.snirf.read_snirf`
+    reads back with the flow all NaN.
     Events go to one ``stim`` group per condition, auxiliary signals to ``aux`` groups.
     The file is written under a temporary name, then renamed.
 
@@ -40,8 +43,16 @@ def write_snirf(recording: Recording, path: str | Path) -> Path:
     -------
     Path
         ``path``.
+
+    Raises
+    ------
+    ValueError
+        When the flow is all NaN and there are no g2 curves (nothing a reader could use).
     """
     path = Path(path)
+    with_flow = not np.isnan(recording.flow).all()
+    if not with_flow and recording.g2 is None:
+        raise ValueError(f"{path.name}: the recording has no flow values and no g2 curves")
     path.parent.mkdir(parents=True, exist_ok=True)
     temporary = path.with_name(f".{path.name}.partial")
     channels = recording.channels
@@ -55,7 +66,7 @@ def write_snirf(recording: Recording, path: str | Path) -> Path:
         return wavelengths.index(channel.wavelength_nm) + 1
 
     columns, lists = [], []
-    for i, channel in enumerate(channels):
+    for i, channel in enumerate(channels if with_flow else ()):  # g2-only file: no 410
         columns.append(recording.flow[:, i])
         lists.append((i + 1, wavelength_index(channel), 410, "BFi", 1, recording.flow_unit))
     if recording.g2 is not None:
