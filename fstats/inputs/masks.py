@@ -14,11 +14,9 @@ from pathlib import Path
 import numpy as np
 
 from fstats.errors import InputError, suggest
-from fstats.inputs._tabular import float_column, read_delimited, write_text_atomic
+from fstats.inputs._tabular import read_numeric, write_text_atomic
 
 __all__ = ["read_flow_mask", "write_flow_mask"]
-
-_FLAGS = {"0": False, "1": True}
 
 
 def read_flow_mask(
@@ -49,8 +47,8 @@ def read_flow_mask(
     path = Path(path)
     times_s = np.asarray(times_s, dtype=float)
     names = list(channel_names)
-    table = read_delimited(path, what="a flow mask")
     expected_header = ["time", *names]
+    table = read_numeric(path, what="a flow mask", complete=tuple(expected_header))
     if set(table.header) != set(expected_header):
         missing = [n for n in expected_header if n not in table.header]
         extra = [n for n in table.header if n not in expected_header]
@@ -62,11 +60,12 @@ def read_flow_mask(
             list(table.header),
             hint=hint or (f"missing {missing}" if missing else None),
         )
-    times = float_column(table, "time", allow_missing=False)
+    times = table.values[:, table.header.index("time")]
+    flags = table.values[:, [table.header.index(name) for name in names]]
     if times.size != times_s.size:
         # the first surplus row, or the line after the last row when rows are missing
-        extra = times.size > times_s.size
-        line = int(table.lines[times_s.size]) if extra else int(table.lines[-1]) + 1
+        surplus = times.size > times_s.size
+        line = int(table.lines[times_s.size]) if surplus else int(table.lines[-1]) + 1
         raise InputError(
             path,
             f"line {line}",
@@ -83,20 +82,16 @@ def read_flow_mask(
             f"the flow sample time {float(times_s[row])!r} s",
             float(times[row]),
         )
-    mask = np.zeros((times_s.size, len(names)), dtype=bool)
-    for c, name in enumerate(names):
-        position = table.index(name)
-        for row, cells in enumerate(table.rows):
-            flag = _FLAGS.get(cells[position])
-            if flag is None:
-                raise InputError(
-                    path,
-                    f"line {table.lines[row]}, column {name!r}",
-                    "0 (keep) or 1 (exclude)",
-                    cells[position],
-                )
-            mask[row, c] = flag
-    return mask
+    bad = np.argwhere((flags != 0) & (flags != 1))
+    if bad.size:
+        row, column = bad[0]
+        raise InputError(
+            path,
+            f"line {table.lines[row]}, column {names[column]!r}",
+            "0 (keep) or 1 (exclude)",
+            float(flags[row, column]),
+        )
+    return flags == 1
 
 
 def write_flow_mask(

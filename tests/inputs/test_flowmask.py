@@ -94,17 +94,17 @@ def _set_cell(path, line, column, text):
 # Each case breaks the mask of a valid flow table; returns fragments the message must hold.
 def value_two(mask):
     _set_cell(mask, 8, 2, "2")
-    return ["line 8, column 'frontal_a'", "0 (keep) or 1 (exclude)", "'2'"]
+    return ["line 8, column 'frontal_a'", "0 (keep) or 1 (exclude)", "found 2.0"]
 
 
 def value_missing(mask):
     _set_cell(mask, 15, 3, "n/a")
-    return ["line 15, column 'frontal_b'", "0 (keep) or 1 (exclude)"]
+    return ["line 15, column 'frontal_b'", "a number", "'n/a'"]
 
 
 def value_fraction(mask):
     _set_cell(mask, 30, 1, "0.5")
-    return ["line 30, column 'scalp'", "'0.5'"]
+    return ["line 30, column 'scalp'", "0 (keep) or 1 (exclude)", "found 0.5"]
 
 
 def misspelled_channel(mask):
