@@ -3,8 +3,9 @@
 ``fstats flowfit`` writes this sidecar next to the flow it fitted from g2 curves: a
 tab-separated table with a ``time`` column (s, the flow table's sample times) and one column
 per channel holding ``1`` for a sample to exclude or down-weight (bad curve, poor fit, low
-count rate, motion) and ``0`` otherwise.  :func:`~fstats.inputs.tables.read_flow_table`
-reads it, when present, into ``Recording.provenance["flow"]["masks"]["exclude"]``.
+count rate, motion) and ``0`` otherwise.  :func:`~fstats.inputs.tables.read_flow_table` and
+:func:`~fstats.inputs.snirf.read_snirf` read it, when present beside the data file, into
+``Recording.provenance["flow"]["masks"]["exclude"]``; the writers write it from there.
 """
 
 from __future__ import annotations
@@ -15,8 +16,9 @@ import numpy as np
 
 from fstats.errors import InputError, suggest
 from fstats.inputs._tabular import read_numeric, write_text_atomic
+from fstats.inputs.recording import Recording
 
-__all__ = ["read_flow_mask", "write_flow_mask"]
+__all__ = ["read_flow_mask", "recording_exclude_mask", "write_flow_mask"]
 
 
 def read_flow_mask(
@@ -125,3 +127,25 @@ def write_flow_mask(
         for t, row in zip(np.asarray(times_s, dtype=float), exclude.tolist(), strict=True)
     )
     return write_text_atomic(path, "\n".join(lines) + "\n")
+
+
+def recording_exclude_mask(recording: Recording) -> np.ndarray | None:
+    """A recording's ``provenance["flow"]["masks"]["exclude"]`` as bool, or None.
+
+    Raises
+    ------
+    ValueError
+        When the mask's shape is not the flow's (n_times, n_channels).
+    """
+    flow_prov = recording.provenance.get("flow")
+    masks = flow_prov.get("masks") if isinstance(flow_prov, dict) else None
+    exclude = masks.get("exclude") if isinstance(masks, dict) else None
+    if exclude is None:
+        return None
+    exclude = np.asarray(exclude)
+    if exclude.shape != recording.flow.shape:
+        raise ValueError(
+            f"provenance['flow']['masks']['exclude'] has shape {exclude.shape}, "
+            f"the flow {recording.flow.shape}"
+        )
+    return exclude.astype(bool)

@@ -35,7 +35,9 @@ count rates (photons per second, the detected intensity) are stored as dataType 
 of other data types are ignored with a log message; a file with none of 401/410 is refused.
 A file with g2 but no BFi gives a Recording whose flow is all NaN
 (``provenance["flow_missing"] = True``) for the flow stage to fill; the writer writes such
-a g2-only file for a recording whose flow is all NaN.  Time stamps and
+a g2-only file for a recording whose flow is all NaN.  A ``<stem>_flowmask.tsv`` beside a
+file with BFi is read into ``provenance["flow"]["masks"]["exclude"]``
+(:mod:`fstats.inputs.masks`).  Time stamps and
 values pass the checks of :mod:`fstats.inputs._validate`.
 """
 
@@ -60,7 +62,7 @@ from fstats.inputs._hdf5 import (
     time_base,
     unit_factor,
 )
-from fstats.inputs._naming import recording_stem, stem_entities
+from fstats.inputs._naming import recording_stem, sidecar_path, stem_entities
 from fstats.inputs._validate import (
     check_flow_values,
     clean_times,
@@ -68,6 +70,7 @@ from fstats.inputs._validate import (
     note_repair,
     regular_grid,
 )
+from fstats.inputs.masks import read_flow_mask
 from fstats.inputs.recording import (
     SHORT_SEPARATION_THRESHOLD_CM,
     Recording,
@@ -110,7 +113,9 @@ def read_snirf(
     -------
     Recording
         Flow (BFi, cm²/s, or relative), g2 (n_times, n_channels, n_lags) and lags (s) if
-        present, stim groups as events, aux groups as auxiliary signals.
+        present, stim groups as events, aux groups as auxiliary signals; the
+        ``<stem>_flowmask.tsv`` sidecar, when present beside a file with BFi, in
+        ``provenance["flow"]["masks"]["exclude"]`` (bool, (n_times, n_channels)).
 
     Raises
     ------
@@ -353,6 +358,10 @@ def _assemble(
     provenance = {"repairs": repairs, "missing_samples": kept, "files": {"snirf": str(path)}}
     if not has_flow.any():
         provenance["flow_missing"] = True
+    elif sidecar_path(path, "flowmask").is_file():  # written by fstats flowfit
+        mask_path = sidecar_path(path, "flowmask")
+        provenance["files"]["flowmask"] = str(mask_path)
+        provenance["flow"] = {"masks": {"exclude": read_flow_mask(mask_path, new_times, names)}}
     return Recording(
         times_s=new_times,
         flow=flow,

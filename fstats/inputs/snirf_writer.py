@@ -7,6 +7,8 @@ from pathlib import Path
 import h5py
 import numpy as np
 
+from fstats.inputs._naming import sidecar_path
+from fstats.inputs.masks import recording_exclude_mask, write_flow_mask
 from fstats.inputs.recording import Channel, Recording
 from fstats.inputs.snirf import SHORT_CHANNELS_TAG
 
@@ -30,7 +32,9 @@ def write_snirf(recording: Recording, path: str | Path) -> Path:
     without 410 measurements: a g2-only file, which :func:`~fstats.inputs.snirf.read_snirf`
     reads back with the flow all NaN.
     Events go to one ``stim`` group per condition, auxiliary signals to ``aux`` groups.
-    The file is written under a temporary name, then renamed.
+    An exclusion mask in ``provenance["flow"]["masks"]["exclude"]`` goes to the sidecar
+    ``<stem>_flowmask.tsv`` (:mod:`fstats.inputs.masks`), written after the SNIRF file.
+    Each file is written under a temporary name, then renamed.
 
     Parameters
     ----------
@@ -47,12 +51,14 @@ def write_snirf(recording: Recording, path: str | Path) -> Path:
     Raises
     ------
     ValueError
-        When the flow is all NaN and there are no g2 curves (nothing a reader could use).
+        When the flow is all NaN and there are no g2 curves (nothing a reader could use),
+        or the exclusion mask does not have the flow's shape.
     """
     path = Path(path)
     with_flow = not np.isnan(recording.flow).all()
     if not with_flow and recording.g2 is None:
         raise ValueError(f"{path.name}: the recording has no flow values and no g2 curves")
+    exclude = recording_exclude_mask(recording) if with_flow else None
     path.parent.mkdir(parents=True, exist_ok=True)
     temporary = path.with_name(f".{path.name}.partial")
     channels = recording.channels
@@ -161,4 +167,8 @@ def write_snirf(recording: Recording, path: str | Path) -> Path:
     except BaseException:
         temporary.unlink(missing_ok=True)
         raise
+    if exclude is not None:
+        write_flow_mask(
+            recording.times_s, recording.channel_names, exclude, sidecar_path(path, "flowmask")
+        )
     return path

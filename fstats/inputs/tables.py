@@ -28,7 +28,7 @@ from fstats.inputs._tabular import (
 from fstats.inputs._validate import check_flow_values, clean_times, fill_missing, regular_grid
 from fstats.inputs.channels import read_channel_table, write_channels
 from fstats.inputs.events import read_events, write_events
-from fstats.inputs.masks import read_flow_mask, write_flow_mask
+from fstats.inputs.masks import read_flow_mask, recording_exclude_mask, write_flow_mask
 from fstats.inputs.recording import (
     FLOW_UNITS,
     SHORT_SEPARATION_THRESHOLD_CM,
@@ -268,21 +268,6 @@ def _shared_aux_times(aux: dict[str, AuxSignal]) -> np.ndarray:
     return signals[0].times_s
 
 
-def _exclude_mask(recording: Recording) -> np.ndarray | None:
-    flow_prov = recording.provenance.get("flow")
-    masks = flow_prov.get("masks") if isinstance(flow_prov, dict) else None
-    exclude = masks.get("exclude") if isinstance(masks, dict) else None
-    if exclude is None:
-        return None
-    exclude = np.asarray(exclude)
-    if exclude.shape != recording.flow.shape:
-        raise ValueError(
-            f"provenance['flow']['masks']['exclude'] has shape {exclude.shape}, "
-            f"the flow {recording.flow.shape}"
-        )
-    return exclude.astype(bool)
-
-
 def write_flow_table(recording: Recording, path: str | Path) -> Path:
     """Write a recording as a flow table plus its sidecars, all sharing the file's stem.
 
@@ -311,7 +296,7 @@ def write_flow_table(recording: Recording, path: str | Path) -> Path:
         raise ValueError(f"flow table must end in .tsv or .csv, got {path.name!r}")
     if recording.aux:
         _shared_aux_times(recording.aux)  # refuse before writing anything
-    exclude = _exclude_mask(recording)
+    exclude = recording_exclude_mask(recording)
     if recording.g2 is not None or recording.count_rate_hz is not None:
         logger.info(
             "%s: g2 curves and count rates are not written to flow tables; use write_snirf", path

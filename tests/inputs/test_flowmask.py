@@ -9,7 +9,14 @@ from numpy.testing import assert_array_equal
 
 from fstats.cli import main
 from fstats.errors import InputError
-from fstats.inputs import read_flow_mask, read_flow_table, read_recording, write_flow_table
+from fstats.inputs import (
+    read_flow_mask,
+    read_flow_table,
+    read_recording,
+    read_snirf,
+    write_flow_table,
+    write_snirf,
+)
 
 STEM = "sub-01_task-subtract"
 
@@ -39,6 +46,32 @@ def test_mask_round_trips_beside_a_flow_table(build, tmp_path, suffix):
     assert back.provenance["files"]["flowmask"] == str(mask_path)
 
 
+def test_mask_round_trips_beside_a_snirf_file(build, tmp_path):
+    """Source: common practice - a sidecar written with a file reads back unchanged."""
+    recording, exclude = _with_mask(build)
+    path = write_snirf(recording, tmp_path / f"{STEM}_dcs.snirf")
+    mask_path = tmp_path / f"{STEM}_flowmask.tsv"
+    reference = pd.read_csv(mask_path, sep="\t")[list(recording.channel_names)].to_numpy()
+    assert_array_equal(reference == 1, exclude)
+    back = read_snirf(path)
+    assert_array_equal(back.provenance["flow"]["masks"]["exclude"], exclude)
+    assert back.provenance["files"]["flowmask"] == str(mask_path)
+
+
+def test_g2_only_snirf_ignores_a_mask_sidecar(build, tmp_path):
+    """Source: CONTRACTS section 10 - masks of a g2-only file come from the flow fit."""
+    recording, _ = _with_mask(build)
+    unfitted = dataclasses.replace(
+        build(3, g2=True), flow=np.full_like(recording.flow, np.nan), provenance={}
+    )
+    path = write_snirf(unfitted, tmp_path / f"{STEM}_dcs.snirf")
+    write_flow_table(recording, tmp_path / f"{STEM}_flow.tsv")  # leaves a flowmask beside
+    assert (tmp_path / f"{STEM}_flowmask.tsv").is_file()
+    back = read_snirf(path)
+    assert back.provenance["flow_missing"] is True
+    assert "flow" not in back.provenance
+
+
 def test_mask_columns_follow_channel_order(build, tmp_path):
     """Source: pandas.read_csv - the mask parsed by name must equal fstats' columns."""
     path, mask_path, exclude = _written(tmp_path, build)
@@ -65,6 +98,8 @@ def test_mask_of_wrong_shape_is_not_written(build, tmp_path):
     )
     with pytest.raises(ValueError, match="exclude"):
         write_flow_table(bad, tmp_path / f"{STEM}_flow.tsv")
+    with pytest.raises(ValueError, match="exclude"):
+        write_snirf(bad, tmp_path / f"{STEM}_dcs.snirf")
     assert list(tmp_path.iterdir()) == []
 
 
