@@ -175,9 +175,15 @@ def courses_figure(courses: pd.DataFrame, *, unit_label: str = "flow change (%)"
     ----------
     courses : DataFrame
         Columns ``condition, channel, time_s, mean, ci_low, ci_high`` and optionally
-        ``group`` (one line per group) and ``is_short``.
+        ``group`` (one line per group), ``is_short`` and ``method`` (with several
+        methods only the model-based one, else the first, is drawn).
     unit_label : str
     """
+    if "method" in courses.columns and courses["method"].nunique() > 1:
+        # One source per figure: the model-based average when present.
+        methods = list(dict.fromkeys(courses["method"].astype(str)))
+        keep = next((m for m in ("model", "fir") if m in methods), methods[0])
+        courses = courses[courses["method"].astype(str) == keep]
     if "group" not in courses.columns:
         courses = courses.assign(group="all")
     courses = courses.assign(group=courses["group"].fillna("all").astype(str))
