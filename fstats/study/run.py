@@ -57,6 +57,7 @@ _RECORDING_PARTS = (
     "_channels.tsv",
     "_events.tsv",
     "_aux.tsv",
+    "_flowmask.tsv",
     "_dcs.snirf",
 )
 
