@@ -8,6 +8,7 @@ from pathlib import Path
 
 import yaml
 
+from fstats.cli._types import positive_int
 from fstats.errors import InputError
 
 __all__ = ["register", "find_demo_study"]
@@ -79,16 +80,6 @@ def _study_for(out_dir: Path, template: Path) -> Path:
     return path
 
 
-def _positive_int(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        value = 0
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected a whole number >= 1, found {text!r}")
-    return value
-
-
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add the ``demo`` subcommand."""
     parser = subparsers.add_parser(
@@ -107,7 +98,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     )
     parser.add_argument(
         "--subjects-per-group",
-        type=_positive_int,
+        type=positive_int(),
         default=6,
         metavar="N",
         help="simulated subjects in each of the two groups (default: 6)",
@@ -117,7 +108,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     )
     parser.add_argument(
         "--workers",
-        type=_positive_int,
+        type=positive_int(),
         metavar="N",
         help="worker processes for the subject fits (default: one per CPU core)",
     )

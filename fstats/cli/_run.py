@@ -8,6 +8,8 @@ import logging
 import sys
 from collections.abc import Iterator
 
+from fstats.cli._types import positive_int
+
 __all__ = ["register"]
 
 _STUDY_HELP = (
@@ -27,16 +29,6 @@ outputs (in the study file's output folder):
 
 exit status: 0 every subject and the group level succeeded; 1 some failed (everything
 else is still written); 2 bad input (study file, design, options)."""
-
-
-def _positive_int(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        value = 0
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected a number of workers >= 1, found {text!r}")
-    return value
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
@@ -60,7 +52,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     run.add_argument("study", metavar="STUDY.yaml", help=_STUDY_HELP)
     run.add_argument(
         "--workers",
-        type=_positive_int,
+        type=positive_int("a number of workers"),
         metavar="N",
         help="worker processes (default: the study file's 'workers', else one per CPU core)",
     )

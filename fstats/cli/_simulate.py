@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import math
 
+from fstats.cli._types import positive_int
 from fstats.errors import InputError
 
 __all__ = ["register"]
@@ -70,16 +71,6 @@ def _fraction(text: str) -> float:
     return value
 
 
-def _count(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        value = 0
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected a whole number >= 1, found {text!r}")
-    return value
-
-
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add the ``simulate`` subcommand."""
     parser = subparsers.add_parser(
@@ -92,7 +83,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument("out_dir", metavar="OUT_DIR", help="cohort folder to write")
     parser.add_argument(
         "--subjects-per-group",
-        type=_count,
+        type=positive_int(),
         default=8,
         metavar="N",
         help="subjects in each of the two groups (default: 8)",

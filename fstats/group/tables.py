@@ -12,6 +12,7 @@ import numpy as np
 import pandas as pd
 
 from fstats.errors import InputError, suggest
+from fstats.fit.results import RESULT_COLUMNS
 
 __all__ = [
     "SUBJECT_COLUMNS",
@@ -23,31 +24,8 @@ __all__ = [
     "average_runs",
 ]
 
-#: Columns of a subject results table, in order (CONTRACTS §5).
-SUBJECT_COLUMNS: tuple[str, ...] = (
-    "subject",
-    "session",
-    "channel",
-    "separation_cm",
-    "is_short",
-    "term",
-    "term_kind",
-    "condition",
-    "estimate",
-    "se",
-    "estimate_pct",
-    "se_pct",
-    "stat",
-    "df",
-    "p",
-    "ci_low",
-    "ci_high",
-    "ci_low_pct",
-    "ci_high_pct",
-    "ar_order",
-    "method",
-    "status",
-)
+#: Columns of a subject results table, in order (CONTRACTS §5): the fit stage's own list.
+SUBJECT_COLUMNS: tuple[str, ...] = RESULT_COLUMNS
 
 #: Scales the group stage can pool: percent change from baseline, or the raw flow unit.
 UNITS: tuple[str, ...] = ("percent", "raw")
