@@ -25,6 +25,20 @@ def _finite(p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return p, mask
 
 
+def _adjust_sorted(p: np.ndarray, step) -> np.ndarray:
+    """Apply ``step`` (sorted finite p-values -> adjusted) and return them in input order."""
+    p, mask = _finite(p)
+    out = np.full(p.shape, np.nan)
+    values = p[mask]
+    if values.size == 0:
+        return out
+    order = np.argsort(values, kind="mergesort")
+    adjusted = np.empty(values.size)
+    adjusted[order] = step(values[order])
+    out[mask] = adjusted
+    return out
+
+
 def fdr_bh(p: np.ndarray) -> np.ndarray:
     """Benjamini–Hochberg adjusted p-values (step-up false discovery rate).
 
@@ -50,19 +64,13 @@ def fdr_bh(p: np.ndarray) -> np.ndarray:
     Benjamini Y, Hochberg Y (1995). Controlling the false discovery rate: a practical
     and powerful approach to multiple testing. J R Stat Soc B 57(1):289-300.
     """
-    p, mask = _finite(p)
-    out = np.full(p.shape, np.nan)
-    values = p[mask]
-    m = values.size
-    if m == 0:
-        return out
-    order = np.argsort(values, kind="mergesort")
-    ranked = values[order] * m / np.arange(1, m + 1)
-    ranked = np.minimum.accumulate(ranked[::-1])[::-1]
-    adjusted = np.empty(m)
-    adjusted[order] = np.minimum(ranked, 1.0)
-    out[mask] = adjusted
-    return out
+
+    def step(ordered: np.ndarray) -> np.ndarray:
+        m = ordered.size
+        ranked = ordered * m / np.arange(1, m + 1)
+        return np.minimum(np.minimum.accumulate(ranked[::-1])[::-1], 1.0)
+
+    return _adjust_sorted(p, step)
 
 
 def holm(p: np.ndarray) -> np.ndarray:
@@ -88,19 +96,12 @@ def holm(p: np.ndarray) -> np.ndarray:
     Holm S (1979). A simple sequentially rejective multiple test procedure.
     Scand J Statist 6:65-70.
     """
-    p, mask = _finite(p)
-    out = np.full(p.shape, np.nan)
-    values = p[mask]
-    m = values.size
-    if m == 0:
-        return out
-    order = np.argsort(values, kind="mergesort")
-    ranked = values[order] * (m - np.arange(m))
-    ranked = np.maximum.accumulate(np.minimum(ranked, 1.0))
-    adjusted = np.empty(m)
-    adjusted[order] = ranked
-    out[mask] = adjusted
-    return out
+
+    def step(ordered: np.ndarray) -> np.ndarray:
+        ranked = ordered * (ordered.size - np.arange(ordered.size))
+        return np.maximum.accumulate(np.minimum(ranked, 1.0))
+
+    return _adjust_sorted(p, step)
 
 
 def bonferroni(p: np.ndarray) -> np.ndarray:
