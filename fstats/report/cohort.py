@@ -7,7 +7,6 @@ group-averaged time courses (:func:`fstats.report.courses.average_time_courses`)
 
 from __future__ import annotations
 
-import datetime as _dt
 import logging
 import shutil
 import tempfile
@@ -24,11 +23,9 @@ from fstats.report.figures_cohort import (
     forest_figure,
 )
 from fstats.report.render import (
-    CAUTION,
     PNG_DPI,
     FigureStore,
-    figure_folder_swap,
-    render_page,
+    finish_page,
     table_rows,
 )
 
@@ -135,7 +132,6 @@ def cohort_report(
     Path
         The HTML file, written atomically.
     """
-    from fstats import __version__
 
     out_path = Path(out_path)
     out_path.parent.mkdir(parents=True, exist_ok=True)
@@ -189,20 +185,19 @@ def cohort_report(
         context = _cohort_context(
             group_result, table, effects, comparisons, subject_pages, failures or [], participants
         )
-        prov = {"fstats_version": __version__, **(provenance or {})}
+        prov = dict(provenance or {})
         if "settings" not in prov and _access.field_of(group_result, "settings"):
             prov["settings"] = _access.field_of(group_result, "settings")
-        context.update(
-            title=title,
-            provenance=prov,
-            created=_dt.datetime.now(_dt.UTC).strftime("%Y-%m-%d %H:%M UTC"),
-            caution=CAUTION,
-            fstats_version=__version__,
+        context.update(title=title)
+        finish_page(
+            "cohort.html.j2",
+            out_path,
+            context,
+            store=store,
+            tmp_dir=tmp_dir,
             sections=COHORT_SECTIONS,
-            figures=store.figures,
+            provenance=prov,
         )
-        figure_folder_swap(tmp_dir, out_path.parent / f"{stem}_figures")
-        render_page("cohort.html.j2", out_path, context)
     finally:
         shutil.rmtree(tmp_dir, ignore_errors=True)
     logger.info("wrote cohort page %s (%d figures)", out_path, len(store.figures))

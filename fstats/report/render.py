@@ -9,6 +9,7 @@ channel and subject name is escaped) and writes the page atomically.
 from __future__ import annotations
 
 import base64
+import datetime as _dt
 import io
 import json
 import math
@@ -31,6 +32,7 @@ __all__ = [
     "format_p",
     "table_rows",
     "figure_folder_swap",
+    "finish_page",
     "PNG_DPI",
 ]
 
@@ -230,3 +232,52 @@ def figure_folder_swap(tmp_folder: Path, final_folder: Path) -> None:
         shutil.rmtree(final_folder)
     if tmp_folder.exists():
         os.replace(tmp_folder, final_folder)
+
+
+def finish_page(
+    template_name: str,
+    out_path: Path,
+    context: dict,
+    *,
+    store: FigureStore,
+    tmp_dir: Path,
+    sections,
+    provenance: dict,
+) -> Path:
+    """Add what every page shows (caution, provenance, date), move the figures into place
+    and write the page atomically.
+
+    Parameters
+    ----------
+    template_name : str
+        Template file in ``fstats/report/templates/``.
+    out_path : Path
+        The HTML file; its figures go to ``<stem>_figures/`` beside it.
+    context : dict
+        The page's own template variables (updated in place with the common ones).
+    store : FigureStore
+        The figures drawn for this page, saved so far under ``tmp_dir``.
+    tmp_dir : Path
+        Temporary figure folder, renamed into place before the page is written.
+    sections : sequence
+        The page's section list (for the navigation bar).
+    provenance : dict
+        Options, input hashes and settings shown in the footer.
+
+    Returns
+    -------
+    Path
+        ``out_path``.
+    """
+    from fstats import __version__
+
+    context.update(
+        provenance={"fstats_version": __version__, **provenance},
+        created=_dt.datetime.now(_dt.UTC).strftime("%Y-%m-%d %H:%M UTC"),
+        caution=CAUTION,
+        fstats_version=__version__,
+        sections=sections,
+        figures=store.figures,
+    )
+    figure_folder_swap(tmp_dir, out_path.parent / f"{out_path.stem}_figures")
+    return render_page(template_name, out_path, context)

@@ -7,7 +7,6 @@ draws the figures (embedded as PNG data URIs and also written as PNG and SVG to
 
 from __future__ import annotations
 
-import datetime as _dt
 import logging
 import tempfile
 from pathlib import Path
@@ -29,12 +28,10 @@ from fstats.report.plotdata import (
     task_spans,
 )
 from fstats.report.render import (
-    CAUTION,
     PNG_DPI,
     FigureStore,
-    figure_folder_swap,
+    finish_page,
     format_number,
-    render_page,
     table_rows,
 )
 
@@ -233,7 +230,6 @@ def subject_report(
     Path
         The HTML file, written atomically (a failure leaves no half-written page).
     """
-    from fstats import __version__
 
     out_path = Path(out_path)
     out_path.parent.mkdir(parents=True, exist_ok=True)
@@ -242,17 +238,15 @@ def subject_report(
     store = FigureStore(tmp_dir, f"{stem}_figures", dpi=dpi)
     try:
         context = _subject_context(recording, design, fit, store, max_points)
-        prov = {"fstats_version": __version__, **(provenance or {})}
-        context.update(
-            provenance=prov,
-            created=_dt.datetime.now(_dt.UTC).strftime("%Y-%m-%d %H:%M UTC"),
-            caution=CAUTION,
-            fstats_version=__version__,
+        finish_page(
+            "subject.html.j2",
+            out_path,
+            context,
+            store=store,
+            tmp_dir=tmp_dir,
             sections=SUBJECT_SECTIONS,
-            figures=store.figures,
+            provenance=dict(provenance or {}),
         )
-        figure_folder_swap(tmp_dir, out_path.parent / f"{stem}_figures")
-        render_page("subject.html.j2", out_path, context)
     finally:
         if tmp_dir.exists():
             import shutil
