@@ -8,7 +8,7 @@ to an existing scheduler; it schedules nothing itself:
   freshly spawned worker processes (the ``spawn`` start method, safe with threads
   and on every platform), each limited to one BLAS thread;
 * ``"local-cluster"``: a :class:`dask.distributed.LocalCluster` started for the run;
-* an address such as ``"tcp://10.0.0.5:8786"`` or a ``dask.distributed.Client``:
+* an address such as ``"tcp://scheduler.example.org:8786"`` or a ``dask.distributed.Client``:
   an existing Dask scheduler (the output folder must be visible to its workers);
 * ``"inline"``: in this process, one task after another (debugging).
 
