@@ -11,13 +11,13 @@ __all__ = ["REGRESSOR_KINDS", "Contrast", "DesignMatrix"]
 #: What a design-matrix column models.  ``task`` columns carry the effects of
 #: interest; every other kind is nuisance.
 REGRESSOR_KINDS: tuple[str, ...] = (
-    "task",        # condition response (incl. derivatives, FIR bins, parametric modulators)
-    "constant",    # intercept
-    "drift",       # discrete cosine or polynomial drift terms
-    "short",       # short-separation channel regressor (and lagged copies)
-    "cardiac",     # RETROICOR cardiac-phase Fourier terms
-    "aux",         # auxiliary signals (respiration belt, PPG, ...)
-    "motion",      # motion regressors (accelerometer, spike indicators)
+    "task",  # condition response (incl. derivatives, FIR bins, parametric modulators)
+    "constant",  # intercept
+    "drift",  # discrete cosine or polynomial drift terms
+    "short",  # short-separation channel regressor (and lagged copies)
+    "cardiac",  # RETROICOR cardiac-phase Fourier terms
+    "aux",  # auxiliary signals (respiration belt, PPG, ...)
+    "motion",  # motion regressors (accelerometer, spike indicators)
 )
 
 
