@@ -18,21 +18,40 @@ the simulator's default, the sign-flip test's null rate, the FDR family-wise rat
 the null rows, and the median time of one GroupModel.fit against the same test through
 scipy.stats.ttest_ind, measured in this run.
 
+End to end (``--end-to-end N``): N null and N alternative cohorts are simulated to
+files by ``fstats.simulate.cohort.simulate_cohort`` (the simulator's own group difference,
+-5 points, and between-subject sd), read back with ``fstats.inputs``, fitted with
+``SubjectGLM`` using the design's fit options, and tested with the Welch and the
+DerSimonian-Laird / Knapp-Hartung two-sample models.  One cohort is one task of a
+process pool (``--workers``); each cohort's seed depends only on ``--seed``, the
+condition and its index, so the numbers do not depend on the worker count.
+
 Usage:  python benchmarks/calibrate_group.py [--cohorts 500] [--n-per-group 8] [--seed 0]
-        python benchmarks/calibrate_group.py --end-to-end 20   # also through simulate+fit
+        python benchmarks/calibrate_group.py --end-to-end 300 --skip-summary \\
+            --duration-s 600 --sfreq-hz 10 --workers 2 --json e2e.json
 """
 
 from __future__ import annotations
 
-import argparse
-import math
-import time
+import os
 
-import numpy as np
-import pandas as pd
-from scipy import stats
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")  # before numpy: no BLAS thread contention
+os.environ.setdefault("OMP_NUM_THREADS", "1")
+os.environ.setdefault("MKL_NUM_THREADS", "1")
 
-from fstats.group import SUBJECT_COLUMNS, GroupModel
+import argparse  # noqa: E402
+import dataclasses  # noqa: E402
+import json  # noqa: E402
+import math  # noqa: E402
+import time  # noqa: E402
+from dataclasses import dataclass  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
+from scipy import stats  # noqa: E402
+
+from fstats.group import SUBJECT_COLUMNS, GroupModel  # noqa: E402
 
 CHANNELS = (("scalp", 1.0, True), ("frontal_a", 3.0, False), ("frontal_b", 3.0, False))
 BASELINE_CM2_S = 1.5e-8
@@ -202,83 +221,260 @@ def timing(n_per_group: int, seed: int, repeats: int = 30) -> dict:
     }
 
 
+DESIGN = Path(__file__).resolve().parents[1] / "designs" / "subtract_blocks.yaml"
+
+#: End-to-end group models: (label, GroupModel options), all two-sample, older - younger.
+E2E_MODELS = {
+    "welch": dict(kind="two-sample"),
+    "dl_knapp_hartung": dict(kind="two-sample", weighting="dersimonian-laird"),
+}
+
+
+@dataclass(frozen=True)
+class CohortTask:
+    """One end-to-end cohort: everything a worker needs (picklable, spawn-safe)."""
+
+    index: int
+    seed: int
+    group_effect_pct: float
+    n_per_group: int
+    duration_s: float
+    sfreq_hz: float
+    design: str
+    fit_options: tuple
+    channels: tuple | None
+    fmt: str = "tsv"
+
+
+def cohort_seed(seed: int, condition: int, index: int) -> int:
+    """Seed of cohort ``index`` of a condition (0 = null, 1 = alternative).
+
+    Derived from ``(seed, condition, index)`` alone, so results do not depend on the
+    number of workers or on the order in which cohorts finish.
+    """
+    return int(np.random.SeedSequence([seed, condition, index]).generate_state(1)[0])
+
+
+def run_cohort(task: CohortTask) -> dict:
+    """Simulate one cohort to files, read it back, fit every recording, test the groups.
+
+    Path: ``simulate_cohort`` (flow tables in a temporary folder) -> ``read_cohort`` ->
+    ``read_recording`` -> ``build_design`` -> ``SubjectGLM.fit`` -> ``GroupModel``
+    two-sample tests on ``frontal_a`` 'subtract' (Welch; DerSimonian-Laird with
+    Knapp-Hartung).  Returns p-values, subject SEs and within-group sds, warning counts
+    and the seconds taken.
+    """
+    import tempfile
+    import warnings
+
+    from fstats.design import build_design, load_design
+    from fstats.errors import FitWarning
+    from fstats.fit.glm import SubjectGLM
+    from fstats.inputs import read_cohort, read_recording
+    from fstats.simulate import SimulationSettings
+    from fstats.simulate.cohort import simulate_cohort
+
+    t0 = time.perf_counter()
+    spec = load_design(task.design)
+    glm = SubjectGLM(**dict(task.fit_options))
+    settings = dataclasses.replace(
+        SimulationSettings(), duration_s=task.duration_s, sfreq_hz=task.sfreq_hz
+    )
+    out = {"index": task.index, "seed": task.seed, "group_effect_pct": task.group_effect_pct}
+    with tempfile.TemporaryDirectory() as tmp, warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", FitWarning)
+        root = simulate_cohort(
+            Path(tmp) / "cohort",
+            n_per_group=task.n_per_group,
+            settings=settings,
+            seed=task.seed,
+            fmt=task.fmt,
+            group_effect_pct=task.group_effect_pct,
+        )
+        cohort = read_cohort(root)
+        tables = []
+        for entry in cohort.recordings:
+            recording = read_recording(entry.path)
+            fit = glm.fit(recording, build_design(spec, recording), channels=task.channels)
+            tables.append(fit.table())
+        tables = pd.concat(tables, ignore_index=True)
+        for label, options in E2E_MODELS.items():
+            res = GroupModel(
+                **options, influence=False, terms=("subtract",), channels=("frontal_a",)
+            ).fit(tables, cohort.participants)
+            row = res.table().iloc[0]
+            out[f"p_{label}"] = float(row["p"])
+            out[f"n_excluded_{label}"] = int(row["n_excluded"])
+            if label == "welch":
+                est = res.subject_estimates
+                out["se_pct"] = [float(v) for v in est["se"]]
+                out["sd_within_pct"] = [
+                    float(v) for v in est.groupby("group")["estimate"].std().to_numpy()
+                ]
+                out["difference_pct"] = float(row["estimate"])
+        out["fit_warnings"] = sum(issubclass(w.category, FitWarning) for w in caught)
+    out["seconds"] = time.perf_counter() - t0
+    return out
+
+
+def _rate(p: np.ndarray, alpha: float) -> dict:
+    """Rejections k/n (a missing p-value counts as not rejected) with a Wilson 95 % interval."""
+    k, n = int(np.sum(p <= alpha)), int(p.size)
+    lo, hi = wilson(k, n)
+    return {
+        "rejections": f"{k}/{n}",
+        "rate": k / n,
+        "wilson_95": [round(lo, 4), round(hi, 4)],
+        "missing_p": int(np.sum(~np.isfinite(p))),
+    }
+
+
+def summarise_end_to_end(results: list[dict], alpha: float = 0.05) -> dict:
+    """Rates per condition and model, median subject se_pct and within-group sd."""
+    summary: dict = {}
+    for condition, diff in (("null", 0.0), ("alternative", None)):
+        rows = [r for r in results if (r["group_effect_pct"] == 0.0) == (diff == 0.0)]
+        if not rows:
+            continue
+        block = {
+            "group_effect_pct": rows[0]["group_effect_pct"],
+            "cohorts": len(rows),
+        }
+        for label in E2E_MODELS:
+            block[label] = _rate(np.array([r[f"p_{label}"] for r in rows]), alpha)
+            block[label]["cohorts_with_exclusions"] = int(
+                sum(r[f"n_excluded_{label}"] > 0 for r in rows)
+            )
+        block["median_subject_se_pct"] = float(np.median([v for r in rows for v in r["se_pct"]]))
+        block["median_within_group_sd_pct"] = float(
+            np.median([v for r in rows for v in r["sd_within_pct"]])
+        )
+        block["mean_estimated_difference_pct"] = float(np.mean([r["difference_pct"] for r in rows]))
+        block["fit_warnings"] = int(sum(r["fit_warnings"] for r in rows))
+        block["median_s_per_cohort"] = float(np.median([r["seconds"] for r in rows]))
+        summary[condition] = block
+    return summary
+
+
 def end_to_end(
     n_cohorts: int,
     n_per_group: int,
     seed: int,
-    design: str,
+    design: str | Path = DESIGN,
     *,
     duration_s: float = 900.0,
     sfreq_hz: float = 20.0,
     fit_options: dict | None = None,
-) -> dict | str:
-    """Cohorts through the real pipeline: fstats.simulate -> design -> fit -> group.
+    workers: int = 1,
+    all_channels: bool = False,
+    group_effect_pct: float = -5.0,
+    fmt: str = "tsv",
+    progress: bool = True,
+) -> dict:
+    """Cohorts through the real pipeline: fstats.simulate -> files -> inputs -> fit -> group.
 
     ``n_cohorts`` null cohorts (``group_effect_pct=0``) and as many with the simulator's
-    default difference (-5 points) are simulated; every recording is fitted with the
-    design's fit options (updated by ``fit_options``) and the Welch two-group test on
-    ``frontal_a`` 'subtract' is counted.  Also reported: the median subject-level
-    ``se_pct`` and the sd of subject estimates within a group, i.e. the quantities the
-    summary-level simulation assumes.  Returns a reason when a stage is missing.
-    """
-    import dataclasses
-    import tempfile
-    from pathlib import Path
+    default difference (``group_effect_pct``, -5 points) are simulated; every recording
+    is fitted with the design's ``fit_options`` (updated by ``fit_options``; block
+    averages off, the group test does not use them) and the two-sample tests on
+    ``frontal_a`` 'subtract' (older - younger) are counted.  Only ``frontal_a`` is
+    fitted unless ``all_channels`` (the scalp channel enters its design as a regressor
+    either way).  One task = one cohort, seeded by :func:`cohort_seed`; ``workers > 1``
+    runs them in a spawn-context process pool.
 
-    try:
-        from fstats.design import build_design, load_design
-        from fstats.fit.glm import SubjectGLM
-        from fstats.inputs import read_cohort, read_recording
-        from fstats.simulate import SimulationSettings
-        from fstats.simulate.cohort import simulate_cohort
-    except ImportError as exc:
-        return f"skipped: {exc}"
+    Returns ``{"settings": ..., "summary": ..., "cohorts": [...]}`` (per-cohort records).
+    """
+    from multiprocessing import get_context
+
+    from fstats.design import load_design
+
     spec = load_design(design)
-    options = {**dict(getattr(spec, "fit_options", {}) or {}), **(fit_options or {})}
-    glm = SubjectGLM(**options)
-    settings = dataclasses.replace(SimulationSettings(), duration_s=duration_s, sfreq_hz=sfreq_hz)
-    p_values = {0.0: [], -5.0: []}
-    ses, sds, seconds = [], [], []
-    for c in range(n_cohorts):
-        for diff, store in p_values.items():
-            t0 = time.perf_counter()
-            with tempfile.TemporaryDirectory() as tmp:
-                root = simulate_cohort(
-                    Path(tmp) / "cohort",
-                    n_per_group=n_per_group,
-                    settings=settings,
-                    seed=seed + 1000 * c + int(diff == 0),
-                    group_effect_pct=diff,
-                )
-                cohort = read_cohort(root)
-                tables = []
-                for entry in cohort.recordings:
-                    recording = read_recording(entry.path)
-                    fit = glm.fit(recording, build_design(spec, recording))
-                    tables.append(fit.table())
-                tables = pd.concat(tables, ignore_index=True)
-                res = GroupModel(
-                    kind="two-sample", influence=False, terms=("subtract",), channels=("frontal_a",)
-                ).fit(tables, cohort.participants)
-                store.append(float(res.table()["p"].iloc[0]))
-                est = res.subject_estimates
-                ses.extend(est["se"].tolist())
-                sds.extend(est.groupby("group")["estimate"].std().tolist())
-            seconds.append(time.perf_counter() - t0)
-    null, alt = np.array(p_values[0.0]), np.array(p_values[-5.0])
-    k0 = int(np.sum(null <= 0.05))
-    return {
-        "cohorts per condition": n_cohorts,
-        "subjects per group": n_per_group,
-        "recording": f"{duration_s:g} s at {sfreq_hz:g} Hz",
-        "fit": options,
-        "null rejections": f"{k0}/{n_cohorts}",
-        "null Wilson 95 %": wilson(k0, n_cohorts),
-        "power at -5 points": float(np.mean(alt <= 0.05)),
-        "median subject se_pct": float(np.median(ses)),
-        "median within-group sd of subject estimates": float(np.median(sds)),
-        "median s per cohort": float(np.median(seconds)),
+    options = {
+        **dict(getattr(spec, "fit_options", {}) or {}),
+        "block_averages": False,
+        **(fit_options or {}),
     }
+    tasks = [
+        CohortTask(
+            index=i,
+            seed=cohort_seed(seed, condition, i),
+            group_effect_pct=diff,
+            n_per_group=n_per_group,
+            duration_s=duration_s,
+            sfreq_hz=sfreq_hz,
+            design=str(design),
+            fit_options=tuple(sorted(options.items())),
+            channels=None if all_channels else ("frontal_a",),
+            fmt=fmt,
+        )
+        for condition, diff in ((0, 0.0), (1, float(group_effect_pct)))
+        for i in range(n_cohorts)
+    ]
+    step = max(1, len(tasks) // 10)
+    t0 = time.perf_counter()
+    results: list[dict] = []
+
+    def _collect(iterator) -> None:
+        for r in iterator:
+            results.append(r)
+            if progress and (len(results) % step == 0 or len(results) == len(tasks)):
+                elapsed = time.perf_counter() - t0
+                eta = elapsed / len(results) * (len(tasks) - len(results))
+                print(
+                    f"  {len(results)}/{len(tasks)} cohorts, {elapsed:.0f} s elapsed, "
+                    f"~{eta:.0f} s left",
+                    flush=True,
+                )
+
+    if workers > 1:
+        with get_context("spawn").Pool(workers) as pool:
+            _collect(pool.imap_unordered(run_cohort, tasks))
+    else:
+        _collect(map(run_cohort, tasks))
+    results.sort(key=lambda r: (r["group_effect_pct"] != 0.0, r["index"]))
+    settings = {
+        "cohorts_per_condition": n_cohorts,
+        "subjects_per_group": n_per_group,
+        "recording": f"{duration_s:g} s at {sfreq_hz:g} Hz",
+        "design": str(design),
+        "fit_options": options,
+        "fitted_channels": "all" if all_channels else ["frontal_a"],
+        "cohort_format": fmt,
+        "test": "frontal_a 'subtract', older - younger, alpha 0.05",
+        "seed": seed,
+        "workers": workers,
+        "wall_s": round(time.perf_counter() - t0, 1),
+    }
+    return {"settings": settings, "summary": summarise_end_to_end(results), "cohorts": results}
+
+
+def _print_end_to_end(found: dict) -> None:
+    settings, summary = found["settings"], found["summary"]
+    print(
+        f"  {settings['cohorts_per_condition']} null + {settings['cohorts_per_condition']} "
+        f"alternative cohorts of 2 x {settings['subjects_per_group']} subjects, "
+        f"{settings['recording']}, fit {settings['fit_options']}, "
+        f"channels fitted: {settings['fitted_channels']}, "
+        f"files {settings['cohort_format']}, workers {settings['workers']}, "
+        f"wall {settings['wall_s']:.0f} s"
+    )
+    for condition, block in summary.items():
+        print(f"  {condition} (older - younger = {block['group_effect_pct']:g} points):")
+        for label in E2E_MODELS:
+            r = block[label]
+            lo, hi = r["wilson_95"]
+            print(
+                f"    {label:18s} rejections {r['rejections']:>8s} = {r['rate']:.3f} "
+                f"[Wilson 95 % {lo:.3f}, {hi:.3f}]  missing p {r['missing_p']}, "
+                f"cohorts with exclusions {r['cohorts_with_exclusions']}"
+            )
+        print(
+            f"    median subject se_pct {block['median_subject_se_pct']:.3f}, median "
+            f"within-group sd {block['median_within_group_sd_pct']:.3f}, mean estimated "
+            f"difference {block['mean_estimated_difference_pct']:.3f}, "
+            f"fit warnings {block['fit_warnings']}, "
+            f"median {block['median_s_per_cohort']:.1f} s per cohort"
+        )
 
 
 def main() -> None:
@@ -294,17 +490,34 @@ def main() -> None:
         metavar="N",
         help="also run N null and N alternative cohorts through simulate + fit",
     )
-    parser.add_argument("--design", default="designs/subtract_blocks.yaml")
+    parser.add_argument("--design", default=str(DESIGN))
     parser.add_argument(
         "--duration-s", type=float, default=900.0, help="end-to-end: simulated recording length (s)"
     )
     parser.add_argument(
         "--sfreq-hz", type=float, default=20.0, help="end-to-end: simulated sampling rate (Hz)"
     )
+    parser.add_argument(
+        "--workers", type=int, default=1, help="end-to-end: worker processes (one cohort a task)"
+    )
+    parser.add_argument(
+        "--all-channels",
+        action="store_true",
+        help="end-to-end: fit every channel, not only the tested frontal_a",
+    )
+    parser.add_argument(
+        "--format",
+        choices=("tsv", "snirf"),
+        default="tsv",
+        help="end-to-end: cohort file format written and read back (same data either way)",
+    )
+    parser.add_argument(
+        "--json", type=Path, default=None, help="end-to-end: write settings, summary, cohorts"
+    )
     parser.add_argument("--skip-summary", action="store_true", help="only the end-to-end check")
     args = parser.parse_args()
     if args.end_to_end:
-        print("end-to-end (fstats.simulate -> design -> fit -> group):")
+        print("end-to-end (fstats.simulate -> files -> inputs -> design -> fit -> group):")
         found = end_to_end(
             args.end_to_end,
             args.n_per_group,
@@ -312,9 +525,13 @@ def main() -> None:
             args.design,
             duration_s=args.duration_s,
             sfreq_hz=args.sfreq_hz,
+            workers=args.workers,
+            all_channels=args.all_channels,
+            fmt=args.format,
         )
-        for key, value in found.items() if isinstance(found, dict) else [("", found)]:
-            print(f"  {key}: {value}")
+        _print_end_to_end(found)
+        if args.json:
+            args.json.write_text(json.dumps(found, indent=1) + "\n")
         if args.skip_summary:
             return
     t0 = time.perf_counter()
