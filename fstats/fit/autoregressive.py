@@ -115,18 +115,20 @@ def autocovariance(
     if one_d:
         x = x[:, None]
     valid = np.isfinite(x)
-    x = np.where(valid, x, 0.0)
+    complete = bool(valid.all())
+    if not complete:
+        x = np.where(valid, x, 0.0)
     n_valid = valid.sum(axis=0)
     if demean:
         mean = x.sum(axis=0) / np.maximum(n_valid, 1)
-        x = np.where(valid, x - mean, 0.0)
+        x = x - mean if complete else np.where(valid, x - mean, 0.0)
     n = x.shape[0]
     n_fft = _fft.next_fast_len(2 * n - 1, real=True)
     spec = _fft.rfft(x, n=n_fft, axis=0)
     sums = _fft.irfft(spec * np.conj(spec), n=n_fft, axis=0)[: max_lag + 1]
     if method == "mle":
         denom = np.broadcast_to(n_valid.astype(float), sums.shape)
-    elif valid.all():
+    elif complete:
         denom = (n - np.arange(max_lag + 1, dtype=float))[:, None] * np.ones(x.shape[1])
     else:
         v = valid.astype(float)
@@ -285,34 +287,43 @@ def whiten(values: np.ndarray, coefs: np.ndarray, valid: np.ndarray) -> np.ndarr
 
 
 class Whitener:
-    """Repeated AR prewhitening of the same columns with changing filters.
+    """Repeated AR prewhitening of the same series with changing filters.
 
-    The columns' FFT is computed once; each :meth:`apply` multiplies by the filter's
+    The series' FFT is computed once; each :meth:`apply` multiplies by the filter's
     transfer function and transforms back, so an AR-IRLS loop pays one inverse FFT
     per AR update instead of a convolution.  Rows that need a missing or a
-    pre-record sample are dropped, as in :func:`whiten`.
+    pre-record sample are dropped, as in :func:`whiten`.  The series are stored one
+    per row (time along the last axis), the layout in which the FFTs are fastest.
 
     Parameters
     ----------
-    values : ndarray, shape (n_times, n_columns)
-        Columns to whiten (rows where ``valid`` is False are ignored).
+    rows : ndarray, shape (n_series, n_times)
+        Series to whiten, one per row (samples where ``valid`` is False are ignored).
     valid : ndarray of bool, shape (n_times,)
-        Rows with data.
+        Samples with data.
     """
 
-    def __init__(self, values: np.ndarray, valid: np.ndarray) -> None:
+    def __init__(self, rows: np.ndarray, valid: np.ndarray) -> None:
         self.valid = np.asarray(valid, dtype=bool)
-        x = np.where(self.valid[:, None], values, 0.0)
-        self.n_times = x.shape[0]
+        self.complete = bool(self.valid.all())
+        x = rows if self.complete else np.where(self.valid, rows, 0.0)
+        self.n_times = x.shape[1]
         self.n_fft = _fft.next_fast_len(self.n_times, real=True)
-        self.spectrum = _fft.rfft(x, n=self.n_fft, axis=0)
+        self.spectrum = _fft.rfft(x, n=self.n_fft, axis=1)
+
+    def kept(self, order: int) -> np.ndarray:
+        """Samples that survive whitening with an AR(order) filter (see :func:`whitened_rows`)."""
+        return whitened_rows(self.valid, order)
 
     def apply(self, coefs: np.ndarray) -> np.ndarray:
-        """Whitened rows for AR coefficients ``coefs`` (shape (p,)), shape (n_kept, n_columns).
+        """Whitened samples for AR coefficients ``coefs`` (shape (p,)), shape (n_series, n_kept).
 
-        Circular wrap-around only touches the first p rows, which are dropped.
+        Circular wrap-around only touches the first p samples, which are dropped.  Without
+        gaps the result is a view of the filtered series from sample p on.
         """
         b = np.concatenate([[1.0], -np.asarray(coefs, dtype=float)])
         transfer = _fft.rfft(b, n=self.n_fft)
-        out = _fft.irfft(self.spectrum * transfer[:, None], n=self.n_fft, axis=0)
-        return out[: self.n_times][whitened_rows(self.valid, b.size - 1)]
+        out = _fft.irfft(self.spectrum * transfer, n=self.n_fft, axis=1)
+        if self.complete:
+            return out[:, b.size - 1 : self.n_times]
+        return out[:, : self.n_times][:, self.kept(b.size - 1)]

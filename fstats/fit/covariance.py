@@ -39,8 +39,11 @@ class SpectralCovariance:
     ----------
     cov : ndarray, shape (k, k)
         Coefficient covariance (flow unit squared per regressor unit squared).
-    design_spectrum : ndarray, shape (n_freqs, k), complex
-        ``DFT(X̃ B)`` on the one-sided frequency grid, times the one-sided weights' square root.
+    basis : ndarray, shape (k, n_freqs), complex
+        ``DFT(X̃)`` of each regressor on the one-sided frequency grid, times the
+        one-sided weights' square root (``√(side / n_fft)``).
+    bread : ndarray, shape (k, k_out)
+        The sandwich's bread ``B`` (its first ``k_out`` columns).
     noise_spectrum : ndarray, shape (n_freqs,)
         Leverage-adjusted smoothed periodogram ``Ŝ(f)`` of the influence series.
     raw_periodogram : ndarray, shape (n_freqs,)
@@ -57,7 +60,8 @@ class SpectralCovariance:
     """
 
     cov: np.ndarray
-    design_spectrum: np.ndarray
+    basis: np.ndarray
+    bread: np.ndarray
     noise_spectrum: np.ndarray
     raw_periodogram: np.ndarray
     adjust: np.ndarray
@@ -65,9 +69,27 @@ class SpectralCovariance:
     smoothing_bins: int
     bin_ratio: float = 1.0
 
+    @property
+    def design_spectrum(self) -> np.ndarray:
+        """``DFT(X̃ B)`` times the one-sided weights' square root, shape (n_freqs, k_out)."""
+        return self.basis.T @ self.bread
+
+    def contrast_power(self, weights: np.ndarray) -> np.ndarray:
+        """``|DFT(X̃ B c)|²`` (one-sided weights included) for contrast rows, shape (n_freqs, q)."""
+        combos = self.bread @ np.atleast_2d(np.asarray(weights, dtype=float)).T  # (k, q)
+        values = combos.T @ _real_view(self.basis)  # (q, 2 n_freqs): re, im interleaved
+        values = values.reshape(values.shape[0], -1, 2)
+        return np.einsum("qfc,qfc->fq", values, values)
+
     def contrast_dof(self, weights: np.ndarray) -> float | np.ndarray:
         """Satterthwaite df of ``c'β̂``: ``weights`` shape (k,) → float, (q, k) → (q,)."""
         return satterthwaite_dof(self, weights)
+
+
+def _real_view(values: np.ndarray) -> np.ndarray:
+    """A complex (k, m) array as real (k, 2m), real and imaginary parts interleaved."""
+    values = np.ascontiguousarray(values)
+    return values.view(np.float64)
 
 
 def _daniell(values: np.ndarray, half_width: int) -> np.ndarray:
@@ -129,27 +151,38 @@ def spectral_sandwich(
     """
     n, k = design.shape
     n_fft = fft.next_fast_len(n, real=True)
+    rows = design.T  # (k, n): the FFTs along contiguous rows are the fast ones
+    if rows.strides[1] != rows.itemsize:
+        rows = np.ascontiguousarray(rows)
     psi = weights * residuals
     side = np.full(n_fft // 2 + 1, 2.0)
     side[0] = 1.0
     if n_fft % 2 == 0:
         side[-1] = 1.0
-    g = fft.rfft(design, n=n_fft, axis=0)
-    gw = fft.rfft(design * np.sqrt(weights)[:, None], n=n_fft, axis=0)
+    g = fft.rfft(rows, n=n_fft, axis=1)
+    if np.all(weights == 1.0):
+        gw = g
+    else:
+        gw = fft.rfft(rows * np.sqrt(weights), n=n_fft, axis=1)
     bread = xtwx_inv if bread is None else bread
     b = bread if columns is None else bread[:, :columns]
-    spec_v = (g @ b) * np.sqrt(side / n_fft)[:, None]
     periodogram = np.abs(fft.rfft(psi, n=n_fft)) ** 2 / n
-    leverage = np.real(np.sum((gw @ xtwx_inv) * np.conj(gw), axis=1)) / n
+    gw_real = _real_view(gw)  # Re and Im of G = DFT(√W X̃), interleaved: (k, 2 n_freqs)
+    quad = np.einsum("kf,kf->f", gw_real, xtwx_inv @ gw_real)
+    leverage = (quad[0::2] + quad[1::2]) / n  # G B G^H / n with B real symmetric
     adjust = np.clip(1.0 - leverage, 0.0, 1.0)
     numer = _daniell(periodogram, smoothing_bins)
     denom = np.maximum(_daniell(adjust, smoothing_bins), 0.1 * (2 * smoothing_bins + 1))
     noise = numer / denom
-    cov = np.real(spec_v.conj().T @ (spec_v * noise[:, None]))
+    basis = g * np.sqrt(side / n_fft)
+    scaled = _real_view(basis) * np.repeat(np.sqrt(noise), 2)
+    meat = scaled @ scaled.T  # Re(Σ_f V^H V Ŝ) before the bread: Re·Re + Im·Im
+    cov = b.T @ meat @ b
     cov = 0.5 * (cov + cov.T)
     return SpectralCovariance(
         cov=cov,
-        design_spectrum=spec_v,
+        basis=basis,
+        bread=b,
         noise_spectrum=noise,
         raw_periodogram=periodogram,
         adjust=adjust,
@@ -176,8 +209,7 @@ def satterthwaite_dof(spectral: SpectralCovariance, contrast: np.ndarray) -> np.
         approximated by ``Ŝ_i (1 - d_i)``, and each ordinate counts as χ²₂/2.
     """
     c = np.asarray(contrast, dtype=float)
-    rows = np.atleast_2d(c)
-    power = np.abs(spectral.design_spectrum @ rows.T) ** 2
+    power = spectral.contrast_power(c)
     a = _daniell(power / spectral.denominator[:, None], spectral.smoothing_bins)
     terms = a * (spectral.noise_spectrum * spectral.adjust)[:, None]
     total = terms.sum(axis=0)

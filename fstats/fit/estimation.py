@@ -7,10 +7,10 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import fft
 
-from fstats.fit.autoregressive import Whitener, fit_ar, whitened_rows
+from fstats.fit.autoregressive import Whitener, fit_ar
 from fstats.fit.covariance import SpectralCovariance, spectral_sandwich
-from fstats.fit.ols import design_rank, ordinary_least_squares
-from fstats.fit.robust import TUKEY_C, irls, weighted_least_squares
+from fstats.fit.ols import gram_rank, ordinary_least_squares
+from fstats.fit.robust import TUKEY_C, NormalEquations, irls_rows
 
 __all__ = ["METHODS", "ChannelEstimate", "ChannelFitError", "estimate_channel"]
 
@@ -81,8 +81,15 @@ class ChannelEstimate:
         return self.spectral.contrast_dof(weights)
 
 
-def _check_inputs(flow: np.ndarray, design: np.ndarray) -> np.ndarray:
-    valid = np.isfinite(flow) & np.isfinite(design).all(axis=1)
+def _prepare(flow: np.ndarray, design: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Valid rows, the joint series ``[y; X']`` as rows (zero on invalid rows), their Gram.
+
+    Raises :class:`ChannelFitError` for all-NaN or constant flow, too few samples and a
+    rank-deficient design (rank from the column-scaled Gram, as ``design_rank``).
+    """
+    valid = np.isfinite(flow)
+    if not np.isfinite(design).all():
+        valid &= np.isfinite(design).all(axis=1)
     n_valid = int(valid.sum())
     k = design.shape[1]
     if n_valid == 0:
@@ -91,10 +98,24 @@ def _check_inputs(flow: np.ndarray, design: np.ndarray) -> np.ndarray:
         raise ChannelFitError(f"{n_valid} valid samples for {k} regressors")
     if np.ptp(flow[valid]) == 0:
         raise ChannelFitError("constant flow (zero variance)")
-    rank = design_rank(design[valid])
+    rows = np.empty((k + 1, flow.shape[0]))
+    rows[0] = flow
+    rows[1:] = design.T
+    if n_valid < flow.shape[0]:
+        rows[:, ~valid] = 0.0
+    gram = rows @ rows.T
+    rank = gram_rank(gram[1:, 1:])
     if rank < k:
         raise ChannelFitError(f"design is rank deficient (rank {rank} < {k} columns)")
-    return valid
+    return valid, rows, gram
+
+
+def _solve_joint(rows: np.ndarray, gram: np.ndarray) -> tuple[np.ndarray, NormalEquations]:
+    """Least squares of row 0 on the other rows of ``rows`` from their joint Gram matrix."""
+    normal = NormalEquations(gram[1:, 1:], rows[1:])
+    if normal.cholesky:
+        return normal.solve(gram[1:, 0]), normal
+    return normal.lstsq(rows[0]), normal
 
 
 def estimate_channel(
@@ -162,16 +183,12 @@ def estimate_channel(
         raise ValueError(f"method must be one of {METHODS}, not {method!r}")
     flow = np.asarray(flow, dtype=float)
     design = np.asarray(design, dtype=float)
-    valid = _check_inputs(flow, design)
+    valid, rows, gram = _prepare(flow, design)
     n_times, k = design.shape
-    y, x = flow[valid], design[valid]
     nan = np.full(n_times, np.nan)
-    if method != "ols":
-        betas = weighted_least_squares(y, x)[0]
-    else:
-        ols = ordinary_least_squares(y, x)
-        betas = ols.betas[:, 0]
     if method == "ols":
+        ols = ordinary_least_squares(flow[valid], design[valid])
+        betas = ols.betas[:, 0]
         fitted = _masked(design, betas, valid)
         resid = np.where(valid, flow - fitted, np.nan)
         return ChannelEstimate(
@@ -189,35 +206,42 @@ def estimate_channel(
             converged=True,
             ar_order_bic=np.zeros(0),
         )
-    flow0 = np.where(valid, flow, 0.0)
-    design0 = np.where(valid[:, None], design, 0.0)
-    whitener = Whitener(np.column_stack([flow0, design0]), valid)
+    complete = bool(valid.all())
+    flow0, xrows = rows[0], rows[1:]  # zero on invalid rows, which then add nothing
+    betas, _ = _solve_joint(rows, gram)
+    fitted0 = xrows.T @ betas
+    whitener = Whitener(rows, valid)
     converged = False
-    weights_w = None
     ar = None
     n_iter = 0
     for step in range(1, max_iter + 1):
         n_iter = step
-        resid = np.where(valid, flow0 - design0 @ betas, np.nan)
+        resid = flow0 - fitted0 if complete else np.where(valid, flow0 - fitted0, np.nan)
         ar = fit_ar(resid, max_ar_order, order=ar_order, method=ar_estimator)
-        kept = whitened_rows(valid, ar.order)
+        kept = whitener.kept(ar.order)
         if kept.sum() <= k:
             raise ChannelFitError(f"too few samples left after AR({ar.order}) whitening")
-        joint = whitener.apply(ar.coefs)
-        yw, xw = joint[:, 0], joint[:, 1:]
+        white = whitener.apply(ar.coefs)
+        yw, xw = white[0], white[1:]
         if method == "ar-irls":
-            fit = irls(yw, xw, c=tukey_c, betas=betas, tol=0.1 * tol)
+            fit = irls_rows(yw, xw, betas, c=tukey_c, tol=0.1 * tol)
             new, weights_w, scale_w = fit.betas, fit.weights, fit.scale
         else:
-            new, _ = weighted_least_squares(yw, xw)
+            new, normal = _solve_joint(white, white @ white.T)
             weights_w = np.ones(yw.shape[0])
-        change = np.linalg.norm(x @ (new - betas)) / max(np.linalg.norm(y - x @ new), 1e-300)
-        betas = new
+        new_fitted = xrows.T @ new
+        change = np.linalg.norm(new_fitted - fitted0) / max(
+            np.linalg.norm(flow0 - new_fitted), 1e-300
+        )
+        betas, fitted0 = new, new_fitted
         if change < tol:
             converged = True
             break
-    xtwx_inv = weighted_least_squares(yw, xw, weights_w)[1]
-    ew = yw - xw @ betas
+    if method == "ar-irls":
+        root_rows = xw * np.sqrt(weights_w)
+        normal = NormalEquations(root_rows @ root_rows.T, root_rows)
+    xtwx_inv = normal.inverse()
+    ew = yw - xw.T @ betas
     sum_w = float(weights_w.sum())
     dof = sum_w - k
     if not dof > 0:
@@ -232,10 +256,12 @@ def estimate_channel(
         bread = xtwx_inv
         if method == "ar-irls":
             bread = _bisquare_bread(xw, ew, scale_w, tukey_c, xtwx_inv)
-        spectral = spectral_sandwich(xw, ew, weights_w, xtwx_inv, smoothing_bins=bins, bread=bread)
+        spectral = spectral_sandwich(
+            xw.T, ew, weights_w, xtwx_inv, smoothing_bins=bins, bread=bread
+        )
         cov = spectral.cov
-    fitted = _masked(design, betas, valid)
-    resid = np.where(valid, flow - fitted, np.nan)
+    fitted = np.where(valid, fitted0, np.nan)
+    resid = np.where(valid, flow - fitted0, np.nan)
     white = nan.copy()
     white[kept] = ew
     weights = nan.copy()
@@ -259,13 +285,15 @@ def estimate_channel(
 
 
 def _bisquare_bread(xw, ew, scale, c, fallback):
-    """``(X̃' diag(ψ'(u)) X̃)^-1`` with ``u = ẽ / s`` and the bisquare ``ψ'`` (Huber sandwich)."""
+    """``(X̃' diag(ψ'(u)) X̃)^-1`` with ``u = ẽ / s`` and the bisquare ``ψ'`` (Huber sandwich).
+
+    ``xw`` holds the whitened regressors as rows, shape (k, n).
+    """
     u = ew / scale / c
     dpsi = np.where(np.abs(u) <= 1.0, (1.0 - u * u) * (1.0 - 5.0 * u * u), 0.0)
-    norms = np.sqrt(np.einsum("ij,ij->j", xw, xw))
+    norms = np.sqrt(np.einsum("ij,ij->i", xw, xw))
     norms[norms == 0] = 1.0
-    xs = xw / norms
-    gram = (xs * dpsi[:, None]).T @ xs  # ψ' < 0 for 0.45 c < |u| < c: not a syrk
+    gram = (xw * dpsi) @ xw.T / np.outer(norms, norms)  # ψ' < 0 for 0.45 c < |u| < c: no syrk
     try:
         inv = np.linalg.inv(gram)
     except np.linalg.LinAlgError:

@@ -6,7 +6,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["OLSResult", "design_rank", "ordinary_least_squares"]
+__all__ = ["OLSResult", "design_rank", "gram_rank", "ordinary_least_squares"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -60,11 +60,29 @@ def design_rank(design: np.ndarray, *, max_condition: float = 1e7) -> int:
     """
     if design.size == 0:
         return 0
-    norms = np.sqrt(np.einsum("ij,ij->j", design, design))
-    zero = norms == 0
-    norms[zero] = 1.0
-    scaled = design / norms
-    eig = np.linalg.eigvalsh(scaled.T @ scaled)
+    return gram_rank(design.T @ design, max_condition=max_condition)
+
+
+def gram_rank(gram: np.ndarray, *, max_condition: float = 1e7) -> int:
+    """Numerical rank of a design matrix from its Gram matrix ``X'X`` (see :func:`design_rank`).
+
+    Parameters
+    ----------
+    gram : ndarray, shape (k, k)
+        ``X'X`` of the design whose rank is wanted.
+    max_condition : float, default=1e7
+        Singular values of the column-scaled design below ``s_max / max_condition``
+        count as zero.
+
+    Returns
+    -------
+    int
+    """
+    if gram.size == 0:
+        return 0
+    norms = np.sqrt(np.clip(np.diag(gram), 0.0, None))
+    norms[norms == 0] = 1.0
+    eig = np.linalg.eigvalsh(gram / np.outer(norms, norms))
     s = np.sqrt(np.clip(eig, 0.0, None))
     return int((s > s.max() / max_condition).sum())
 

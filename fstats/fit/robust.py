@@ -17,9 +17,12 @@ __all__ = [
     "MAD_NORMAL",
     "tukey_bisquare_weights",
     "mad_scale",
+    "MAX_GRAM_CONDITION",
+    "NormalEquations",
     "weighted_least_squares",
     "IRLSResult",
     "irls",
+    "irls_rows",
 ]
 
 #: Tukey bisquare tuning constant: 95 % asymptotic efficiency at the normal
@@ -47,7 +50,9 @@ def tukey_bisquare_weights(scaled_residuals: np.ndarray, c: float = TUKEY_C) -> 
         Weights in [0, 1], same shape as the input.
     """
     u = np.asarray(scaled_residuals, dtype=float) / c
-    return np.where(np.abs(u) <= 1.0, (1.0 - u * u) ** 2, 0.0)
+    w = 1.0 - u * u
+    w = np.where(w > 0.0, w, 0.0)  # |u| >= 1 (1 - u² <= 0) and NaN get weight 0
+    return w * w
 
 
 def mad_scale(residuals: np.ndarray) -> float:
@@ -63,7 +68,98 @@ def mad_scale(residuals: np.ndarray) -> float:
     float
         Scale in the residuals' unit; equals σ for normal residuals in large samples.
     """
-    return float(np.median(np.abs(residuals)) / MAD_NORMAL)
+    a = np.abs(np.ravel(residuals))
+    n = a.size
+    if n == 0 or not np.isfinite(a.sum()):
+        return float(np.median(a) / MAD_NORMAL)
+    half = n // 2
+    if n % 2:
+        median = np.partition(a, half)[half]
+    else:  # the mean of the two middle values, as numpy.median
+        part = np.partition(a, (half - 1, half))
+        median = 0.5 * (part[half - 1] + part[half])
+    return float(median / MAD_NORMAL)
+
+
+#: Largest 1-norm condition number of the column-scaled Gram matrix ``X'WX`` solved by
+#: Cholesky (``cond(X)`` up to about 1e4); above it, or when Cholesky fails, the
+#: least-squares problem is solved from the rows instead (SVD), which keeps full accuracy.
+MAX_GRAM_CONDITION: float = 1e8
+
+
+class NormalEquations:
+    """``X'WX`` for repeated solves: Cholesky of the column-scaled Gram, else rows by SVD.
+
+    Parameters
+    ----------
+    gram : ndarray, shape (k, k)
+        ``X'WX``.
+    rows : ndarray, shape (k, n), optional
+        ``(√W X)'``, the weighted regressors as rows; needed for the fallback when the
+        Gram matrix is not positive definite or too ill-conditioned for Cholesky
+        (condition above :data:`MAX_GRAM_CONDITION`).  Without it such a Gram raises
+        :class:`numpy.linalg.LinAlgError`.
+
+    Notes
+    -----
+    Scaling the columns to unit length first (``D^-1 X'WX D^-1``) makes the condition
+    number that of the correlation structure, not of the regressors' units.
+    """
+
+    def __init__(self, gram: np.ndarray, rows: np.ndarray | None = None) -> None:
+        gram = np.asarray(gram, dtype=float)
+        k = gram.shape[0]
+        norms = np.sqrt(np.clip(np.diag(gram), 0.0, None))
+        norms[~(norms > 0)] = 1.0
+        self.norms = norms
+        self.factor = None
+        self._inv = None
+        self._svd = None
+        scaled = gram / np.outer(norms, norms)
+        try:
+            factor = linalg.cho_factor(scaled, check_finite=False)
+            inv = linalg.cho_solve(factor, np.eye(k), check_finite=False)
+            cond = np.abs(scaled).sum(axis=0).max() * np.abs(inv).sum(axis=0).max()
+            if np.isfinite(cond) and cond <= MAX_GRAM_CONDITION:
+                self.factor = factor
+                self._inv = inv / np.outer(norms, norms)
+        except (np.linalg.LinAlgError, ValueError):
+            pass
+        if self.factor is None:
+            if rows is None:
+                raise np.linalg.LinAlgError("Gram matrix is singular or too ill-conditioned")
+            u, sv, vt = np.linalg.svd(np.asarray(rows, dtype=float).T / norms, full_matrices=False)
+            keep = sv > sv[0] * k * np.finfo(float).eps
+            self._svd = (u[:, keep], sv[keep], vt[keep])
+
+    @property
+    def cholesky(self) -> bool:
+        """Whether the solves use the Cholesky factor (False: the SVD fallback)."""
+        return self.factor is not None
+
+    def solve(self, rhs: np.ndarray) -> np.ndarray:
+        """``(X'WX)^-1 rhs`` for ``rhs`` of shape (k,) or (k, m)."""
+        norms = self.norms.reshape((-1,) + (1,) * (np.ndim(rhs) - 1))
+        scaled = rhs / norms
+        if self.factor is not None:
+            out = linalg.cho_solve(self.factor, scaled, check_finite=False)
+        else:
+            _, sv, vt = self._svd
+            power = (sv * sv).reshape((-1,) + (1,) * (np.ndim(rhs) - 1))
+            out = vt.T @ ((vt @ scaled) / power)
+        return out / norms
+
+    def inverse(self) -> np.ndarray:
+        """``(X'WX)^-1`` (pseudo-inverse on the fallback), shape (k, k)."""
+        if self._inv is None:
+            _, sv, vt = self._svd
+            self._inv = (vt.T / (sv * sv)) @ vt / np.outer(self.norms, self.norms)
+        return self._inv
+
+    def lstsq(self, response: np.ndarray) -> np.ndarray:
+        """Least-squares coefficients of ``√W y`` on the rows (fallback only), shape (k,)."""
+        u, sv, vt = self._svd
+        return vt.T @ ((u.T @ response) / sv) / self.norms
 
 
 def weighted_least_squares(
@@ -84,7 +180,7 @@ def weighted_least_squares(
     weights : ndarray, shape (n,), optional
         Non-negative row weights (1 when omitted).
     unit_columns : bool, default=False
-        The columns already have unit length (skip the scaling).
+        Kept for compatibility; the columns are always scaled to unit length internally.
 
     Returns
     -------
@@ -92,26 +188,24 @@ def weighted_least_squares(
         Coefficients.
     xtwx_inv : ndarray, shape (k, k)
         ``(X' W X)^-1``.
+
+    Notes
+    -----
+    When Cholesky fails or the scaled Gram matrix is ill-conditioned (see
+    :class:`NormalEquations`), the coefficients come from an SVD of ``√W X`` instead.
     """
-    if unit_columns:
-        norms = np.ones(design.shape[1])
-        xs = design
-    else:
-        norms = np.sqrt(np.einsum("ij,ij->j", design, design))
-        norms[norms == 0] = 1.0
-        xs = design / norms
-    if weights is None:
-        gram = xs.T @ xs
-        rhs = xs.T @ response
-    else:
+    rows = np.asarray(design, dtype=float).T
+    y = np.asarray(response, dtype=float)
+    if weights is not None:
         root = np.sqrt(weights)
-        xw = xs * root[:, None]
-        gram = xw.T @ xw  # symmetric rank-k update
-        rhs = xw.T @ (root * response)
-    factor = linalg.cho_factor(gram, check_finite=False)
-    betas = linalg.cho_solve(factor, rhs, check_finite=False) / norms
-    inv = linalg.cho_solve(factor, np.eye(gram.shape[0]), check_finite=False)
-    return betas, inv / np.outer(norms, norms)
+        rows = rows * root
+        y = root * y
+    normal = NormalEquations(rows @ rows.T, rows)
+    if normal.cholesky:
+        betas = normal.solve(rows @ y)
+    else:
+        betas = normal.lstsq(y)
+    return betas, normal.inverse()
 
 
 @dataclass(frozen=True, eq=False)
@@ -126,8 +220,9 @@ class IRLSResult:
         Final bisquare weights in [0, 1].
     scale : float
         Final MAD scale of the residuals.
-    xtwx_inv : ndarray, shape (k, k)
-        ``(X' W X)^-1`` at the final weights.
+    xtwx_inv : ndarray, shape (k, k) or None
+        ``(X' W X)^-1`` at the final weights (None from :func:`irls_rows`, whose
+        caller forms it with the final weights).
     n_iter : int
         Iterations used.
     converged : bool
@@ -137,7 +232,7 @@ class IRLSResult:
     betas: np.ndarray
     weights: np.ndarray
     scale: float
-    xtwx_inv: np.ndarray
+    xtwx_inv: np.ndarray | None
     n_iter: int
     converged: bool
 
@@ -214,6 +309,85 @@ def irls(
         weights=weights,
         scale=scale,
         xtwx_inv=inv / np.outer(norms, norms),
+        n_iter=n_iter,
+        converged=converged,
+    )
+
+
+def irls_rows(
+    response: np.ndarray,
+    rows: np.ndarray,
+    betas: np.ndarray,
+    *,
+    c: float = TUKEY_C,
+    max_iter: int = 50,
+    tol: float = 1e-8,
+) -> IRLSResult:
+    """The Tukey-bisquare M-estimate of :func:`irls`, regressors as rows, few Gram matrices.
+
+    Parameters
+    ----------
+    response : ndarray, shape (n,)
+        Response values (e.g. prewhitened flow).
+    rows : ndarray, shape (k, n)
+        Regressors as rows (the transposed design; a strided view is fine).
+    betas : ndarray, shape (k,)
+        Starting coefficients.
+    c, max_iter, tol
+        As in :func:`irls`.
+
+    Returns
+    -------
+    IRLSResult
+        With ``xtwx_inv=None``.
+
+    Notes
+    -----
+    An IRLS step ``β⁺ = (X'WX)^-1 X'Wy`` is ``β + (X'WX)^-1 X'W e`` with ``e = y - Xβ``.
+    Here ``X'WX`` is factored at the first step's weights and kept while the steps
+    shrink by at least half each time (refactored otherwise), so a step costs two
+    matrix-vector products, the MAD and the weights.  The iteration stops at the same
+    fixed point ``X'W e = 0`` (weights and MAD scale recomputed every step) with the same
+    stopping rule, ``||X Δβ|| < tol ||e||``.
+    """
+    n = response.shape[0]
+    betas = np.array(betas, dtype=float)
+    resid = response - rows.T @ betas
+    normal = None
+    refresh = True
+    previous = np.inf
+    converged = False
+    weights = np.ones(n)
+    n_iter = 0
+    for step in range(1, max_iter + 1):
+        n_iter = step
+        scale = mad_scale(resid)
+        if not scale > 0:
+            weights = np.ones(n)
+            normal = NormalEquations(rows @ rows.T, rows)
+            betas = normal.solve(rows @ response) if normal.cholesky else normal.lstsq(response)
+            converged = True
+            break
+        weights = tukey_bisquare_weights(resid / scale, c)
+        if refresh:
+            root_rows = rows * np.sqrt(weights)
+            normal = NormalEquations(root_rows @ root_rows.T, root_rows)
+        delta = normal.solve(rows @ (weights * resid))
+        change = rows.T @ delta
+        size = np.linalg.norm(change) / max(np.linalg.norm(resid), 1e-300)
+        betas = betas + delta
+        resid = resid - change
+        if size < tol:
+            converged = True
+            break
+        refresh = size > 0.5 * previous
+        previous = size
+    resid = response - rows.T @ betas
+    return IRLSResult(
+        betas=betas,
+        weights=weights,
+        scale=mad_scale(resid),
+        xtwx_inv=None,
         n_iter=n_iter,
         converged=converged,
     )
