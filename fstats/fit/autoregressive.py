@@ -276,6 +276,8 @@ def whiten(values: np.ndarray, coefs: np.ndarray, valid: np.ndarray) -> np.ndarr
     b = np.concatenate([[1.0], -np.asarray(coefs, dtype=float)])
     if b.size == 1:
         filtered = x.astype(float)
+    elif x.ndim == 1:  # one series: direct convolution beats the FFT at these lengths
+        filtered = np.convolve(x.astype(float), b)[: x.shape[0]]
     elif b.size <= 12:
         filtered = np.array(x, dtype=float)
         for i in range(1, b.size):
@@ -307,9 +309,15 @@ class Whitener:
         self.valid = np.asarray(valid, dtype=bool)
         self.complete = bool(self.valid.all())
         x = rows if self.complete else np.where(self.valid, rows, 0.0)
+        self.rows = x
         self.n_times = x.shape[1]
         self.n_fft = _fft.next_fast_len(self.n_times, real=True)
         self.spectrum = _fft.rfft(x, n=self.n_fft, axis=1)
+        side = np.full(self.spectrum.shape[1], 2.0)
+        side[0] = 1.0
+        if self.n_fft % 2 == 0:
+            side[-1] = 1.0
+        self._side = side / self.n_fft
 
     def kept(self, order: int) -> np.ndarray:
         """Samples that survive whitening with an AR(order) filter (see :func:`whitened_rows`)."""
@@ -327,3 +335,55 @@ class Whitener:
         if self.complete:
             return out[:, b.size - 1 : self.n_times]
         return out[:, : self.n_times][:, self.kept(b.size - 1)]
+
+    def gram(self, coefs: np.ndarray, *, max_dropped: float = 0.1) -> np.ndarray | None:
+        """Gram matrix ``W W'`` of the whitened samples ``W = apply(coefs)``, without forming W.
+
+        Parameters
+        ----------
+        coefs : ndarray, shape (p,)
+            AR coefficients.
+        max_dropped : float, default=0.1
+            Give up (return None) when more than this share of the samples needs the
+            correction below; the caller then uses :meth:`apply`.
+
+        Returns
+        -------
+        ndarray, shape (n_series, n_series) or None
+
+        Notes
+        -----
+        By Parseval's theorem the circularly filtered series ``c = IDFT(Z B)`` have
+        ``c c' = Σ_f side_f |B_f|² Re(Z_f^* Z_f') / n_fft`` (one-sided sum).  ``c``
+        equals the whitened series on the kept samples; the samples dropped by the
+        whitening (the first p, those after gaps, and the tail of the zero padding)
+        are computed directly from their p + 1 taps and their outer products
+        subtracted.  The cost is one weighted Gram matrix of the stored spectrum
+        instead of an inverse FFT of every series.
+        """
+        b = np.concatenate([[1.0], -np.asarray(coefs, dtype=float)])
+        p = b.size - 1
+        transfer = _fft.rfft(b, n=self.n_fft)
+        power = (transfer.real**2 + transfer.imag**2) * self._side
+        scaled = self.spectrum * np.sqrt(power)
+        flat = scaled.view(np.float64)  # Re and Im interleaved: Re·Re + Im·Im = Re(Z^* Z')
+        gram = flat @ flat.T
+        if p == 0:
+            return gram
+        # samples of the circular output that are not kept but may be non-zero
+        valid = np.zeros(self.n_fft, dtype=bool)
+        valid[: self.n_times] = self.valid
+        kept = np.zeros(self.n_fft, dtype=bool)
+        kept[: self.n_times] = self.kept(p)
+        count = np.concatenate([[0], np.cumsum(np.concatenate([valid[-p:], valid]))])
+        touched = count[p + 1 :] - count[: self.n_fft] > 0  # a valid tap in t-p..t (circular)
+        dropped = np.flatnonzero(touched & ~kept)
+        if dropped.size > max_dropped * self.n_times:
+            return None
+        out = np.zeros((self.rows.shape[0], dropped.size))
+        for i in range(p + 1):
+            idx = dropped - i
+            idx[idx < 0] += self.n_fft
+            inside = idx < self.n_times
+            out[:, inside] += b[i] * self.rows[:, idx[inside]]
+        return gram - out @ out.T

@@ -7,7 +7,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import fft
 
-from fstats.fit.autoregressive import Whitener, fit_ar
+from fstats.fit.autoregressive import Whitener, fit_ar, whiten
 from fstats.fit.covariance import SpectralCovariance, spectral_sandwich
 from fstats.fit.ols import gram_rank, ordinary_least_squares
 from fstats.fit.robust import TUKEY_C, NormalEquations, irls_rows
@@ -108,6 +108,20 @@ def _prepare(flow: np.ndarray, design: np.ndarray) -> tuple[np.ndarray, np.ndarr
     if rank < k:
         raise ChannelFitError(f"design is rank deficient (rank {rank} < {k} columns)")
     return valid, rows, gram
+
+
+def _whitened_ols(whitener: Whitener, coefs: np.ndarray) -> tuple[np.ndarray, NormalEquations]:
+    """OLS of the whitened flow on the whitened design, from the Gram matrix when possible."""
+    gram = whitener.gram(coefs)
+    if gram is not None:
+        try:
+            normal = NormalEquations(gram[1:, 1:])
+        except np.linalg.LinAlgError:
+            pass  # ill-conditioned: solve from the whitened rows below
+        else:
+            return normal.solve(gram[1:, 0]), normal
+    white = whitener.apply(coefs)
+    return _solve_joint(white, white @ white.T)
 
 
 def _solve_joint(rows: np.ndarray, gram: np.ndarray) -> tuple[np.ndarray, NormalEquations]:
@@ -221,14 +235,13 @@ def estimate_channel(
         kept = whitener.kept(ar.order)
         if kept.sum() <= k:
             raise ChannelFitError(f"too few samples left after AR({ar.order}) whitening")
-        white = whitener.apply(ar.coefs)
-        yw, xw = white[0], white[1:]
         if method == "ar-irls":
+            white = whitener.apply(ar.coefs)
+            yw, xw = white[0], white[1:]
             fit = irls_rows(yw, xw, betas, c=tukey_c, tol=0.1 * tol)
             new, weights_w, scale_w = fit.betas, fit.weights, fit.scale
         else:
-            new, normal = _solve_joint(white, white @ white.T)
-            weights_w = np.ones(yw.shape[0])
+            new, normal = _whitened_ols(whitener, ar.coefs)
         new_fitted = xrows.T @ new
         change = np.linalg.norm(new_fitted - fitted0) / max(
             np.linalg.norm(flow0 - new_fitted), 1e-300
@@ -240,8 +253,16 @@ def estimate_channel(
     if method == "ar-irls":
         root_rows = xw * np.sqrt(weights_w)
         normal = NormalEquations(root_rows @ root_rows.T, root_rows)
+    else:
+        weights_w = np.ones(int(kept.sum()))
     xtwx_inv = normal.inverse()
-    ew = yw - xw.T @ betas
+    if method == "ar-irls" or covariance == "spectral":
+        if method != "ar-irls":
+            white = whitener.apply(ar.coefs)
+            yw, xw = white[0], white[1:]
+        ew = yw - xw.T @ betas
+    else:  # the whitened residuals alone: filter y - Xβ (one series, not the design)
+        ew = whiten(flow0 - fitted0, ar.coefs, valid)
     sum_w = float(weights_w.sum())
     dof = sum_w - k
     if not dof > 0:
