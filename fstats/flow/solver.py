@@ -22,6 +22,8 @@ _BETA_MIN = 1e-4
 
 _EXP_FLOOR = -300.0  # exponents are clipped here: e^-300 ~ 5e-131, never subnormal
 _GRID_STEP = 0.2  # spacing of the starting-value grid in log BFi (22 %)
+_TAYLOR_MAX = 1e-3  # largest log-BFi step judged on a Taylor expansion of the model
+_BLAS_BLOCK = 1 << 18  # multiply-adds per matrix product block (see _products)
 
 _GEOM_KEYS = ("r1", "r2", "z0", "z_image", "k_static_sq", "flow_coef")
 
@@ -55,11 +57,16 @@ def decay_product_cm2(level: float, geom: dict, observable: str) -> np.ndarray:
     return np.exp(0.5 * (lo + hi))
 
 
-def _g1_squared(u, lags, geom, observable):
-    """g1² and its derivative with respect to log-BFi ``u`` (shape (n, 1)), per lag.
+def _log_model(u, lags, geom, observable, curvature=False):
+    """g1², L' = d log g1²/du and, with ``curvature``, L'' = d² log g1²/du² per lag.
 
-    With q = flow_coef · BFi · τ, K = √(K0² + q), dK/du = q / (2K), so
-    d(g1²)/du = 2 g1² · (d log G/dK) · q / (2K) = g1² · (d log G/dK) · q / K.
+    ``u`` is log-BFi, shape (n, 1) (or (n_grid, 1) for a table).  With q = flow_coef·BFi·τ,
+    K = √(K0² + q), dK/du = q / (2K), s = d log G/dK and s2 = G''/G (G the unnormalised
+    signal of :func:`fstats.flow.forward._surface_signal`)::
+
+        L'  = s · q / K
+        L'' = (q / K) · [(s2 - s²) · q / (2K) + s · (1 - q / (2K²))]
+
     Written with in-place operations: this is the hot loop of the fitter.
     """
     q = (geom["flow_coef"] * np.exp(u)) * lags
@@ -70,12 +77,16 @@ def _g1_squared(u, lags, geom, observable):
     tail = k * (r1 - r2)
     np.maximum(tail, _EXP_FLOOR, out=tail)  # below e^-300 the value is 0 for all purposes,
     np.exp(tail, out=tail)  # e^{-K (r2 - r1)}   and exp() is much slower in underflow
+    s2 = None
     if observable == "fluence":
         inv_r1 = 1.0 / r1
         value = tail * (-1.0 / r2)
         value += inv_r1
         value0 = inv_r1 - np.exp(-k0 * (r2 - r1)) / r2
         slope = tail - 1.0  # d log G/dK = -(1 - tail)/value
+        if curvature:
+            s2 = tail * (-r2)  # G''/G = (r1 - r2·tail)/value
+            s2 += r1
     else:
         a1 = geom["z0"] / r1**2
         a2 = (geom["z_image"] / r2**2) * tail
@@ -84,7 +95,10 @@ def _g1_squared(u, lags, geom, observable):
             k0 + 1.0 / r2
         )
         slope = -k * (a1 * r1 + a2 * r2)
-    slope /= value
+        if curvature:  # G''/G = -[a1 r1 (1 - K r1) + a2 r2 (1 - K r2)] / value
+            s2 = (k * r1 - 1.0) * (a1 * r1) + (k * r2 - 1.0) * (a2 * r2)
+    inv_value = np.divide(1.0, value)
+    slope *= inv_value
     g1sq = k * (-2.0 * r1)
     g1sq += 2.0 * k0 * r1
     np.maximum(g1sq, _EXP_FLOOR, out=g1sq)
@@ -92,57 +106,107 @@ def _g1_squared(u, lags, geom, observable):
     value *= 1.0 / value0
     value *= value
     g1sq *= value
-    # derivative: g1² · slope · q / K
-    q /= k
-    q *= slope
-    q *= g1sq
-    return g1sq, q
+    q /= k  # q/K
+    if not curvature:
+        q *= slope
+        return g1sq, q, None
+    s2 *= inv_value
+    s2 -= slope * slope  # d s/dK = G''/G - s²
+    s2 *= 0.5 * q
+    value = q / k  # reuse: q / K²
+    value *= -0.5
+    value += 1.0
+    value *= slope
+    s2 += value
+    s2 *= q  # L''
+    q *= slope  # L'
+    return g1sq, q, s2
 
 
-def _evaluate(u, beta_fixed, wy, w, lags, geom, observable, model=None):
-    """β (profiled or fixed), weighted residual, χ² and the reduced Jacobian column.
+def _g1_squared(u, lags, geom, observable):
+    """g1² and its derivative with respect to log-BFi ``u`` (shape (n, 1)), per lag.
 
-    ``model`` = (g1², d g1²/du) at ``u`` when already known (from the start grid).
+    With q = flow_coef · BFi · τ, K = √(K0² + q), dK/du = q / (2K), so
+    d(g1²)/du = 2 g1² · (d log G/dK) · q / (2K) = g1² · (d log G/dK) · q / K.
     """
-    if model is None:
-        with np.errstate(over="ignore", invalid="ignore", under="ignore"):
-            g1sq, dg_du = _g1_squared(u[:, None], lags, geom, observable)
-    else:
-        g1sq, dg_du = model
-    jb = g1sq
-    jb *= w  # g1² is not needed unweighted after this
-    free = np.zeros(u.shape[0], dtype=bool)
+    g1sq, dlog, _ = _log_model(u, lags, geom, observable)
+    dlog *= g1sq
+    return g1sq, dlog
+
+
+def _profile(jb, beta_fixed, wy):
+    """β (profiled or fixed), weighted residual, χ² and Σ jb² for the weighted β column
+    ``jb`` = w·g1² of each curve."""
     power = np.einsum("ij,ij->i", jb, jb)
     if beta_fixed is None:
         # β enters linearly: its least-squares value for this u (variable projection),
         # kept within (0, BETA_MAX]; a clamped β acts as fixed for this step
-        with np.errstate(divide="ignore", invalid="ignore"):
-            beta = np.einsum("ij,ij->i", jb, wy) / power
-        free = (beta > _BETA_MIN) & (beta < BETA_MAX)
-        beta = np.clip(beta, _BETA_MIN, BETA_MAX)
+        beta = np.clip(np.einsum("ij,ij->i", jb, wy) / power, _BETA_MIN, BETA_MAX)
     else:
         beta = beta_fixed
-    with np.errstate(invalid="ignore"):
-        resid = jb * (-beta[:, None])
-        resid += wy
-        chi = np.einsum("ij,ij->i", resid, resid)
-        dg_du *= w
-        dg_du *= beta[:, None]
-        ju = dg_du
-    if free.any():
-        # Kaufman's reduced Jacobian: remove the part of d(model)/du along the β column
-        with np.errstate(divide="ignore", invalid="ignore"):
+    resid = jb * (-beta[:, None])
+    resid += wy
+    chi = np.einsum("ij,ij->i", resid, resid)
+    return beta, resid, chi, power
+
+
+def _evaluate(u, beta_fixed, wy, w, lags, geom, observable):
+    """β (profiled or fixed), weighted residual, χ² and Kaufman's reduced Jacobian column
+    (d model/du with its part along the β column removed) at ``u``, shape (n,)."""
+    with np.errstate(all="ignore"):
+        g1sq, dlog, _ = _log_model(u[:, None], lags, geom, observable)
+        jb = g1sq * w
+        beta, resid, chi, power = _profile(jb, beta_fixed, wy)
+        ju = jb * dlog * beta[:, None]
+        if beta_fixed is None:
+            free = (beta > _BETA_MIN) & (beta < BETA_MAX)
             proj = np.where(free, np.einsum("ij,ij->i", ju, jb) / power, 0.0)
-        ju -= proj[:, None] * jb
+            ju -= proj[:, None] * jb
     return beta, resid, chi, ju
+
+
+def _exact_trial(u, beta_fixed, wy, w, lags, geom, observable):
+    """Everything the iteration keeps about a point ``u``: β, weighted residual, χ², Σ jb²,
+    jb = w·g1², jd = w·d(g1²)/du, L' and L'' (see :func:`_log_model`)."""
+    jb, dlog, lpp = _log_model(u[:, None], lags, geom, observable, curvature=True)
+    jb *= w
+    beta, resid, chi, power = _profile(jb, beta_fixed, wy)
+    return beta, resid, chi, power, jb, jb * dlog, dlog, lpp
+
+
+def _taylor_trial(du, jb, dlog, lpp, beta_fixed, wy):
+    """β, weighted residual, χ² and Σ jb² at u + du from the model at u, without evaluating it.
+
+    log g1² is expanded to second order in du, a = L' du + L'' du²/2, and e^a by its
+    Taylor series to the fourth power.  For |du| <= :data:`_TAYLOR_MAX` the relative
+    model error is below ~1e-9 on every lag that carries signal (L''' du³/6, with
+    |L'''| of order |log g1²|/8, and a⁵/120 for the series), far inside the rounding of
+    the χ² comparison that follows; on lags where g1² is vanishingly small the relative
+    error grows, its absolute size does not.
+    """
+    step = du[:, None]
+    a = lpp * (0.5 * step)
+    a += dlog
+    a *= step
+    factor = a * (1.0 / 24.0)
+    factor += 1.0 / 6.0
+    factor *= a
+    factor += 0.5
+    factor *= a
+    factor += 1.0
+    factor *= a
+    factor += 1.0
+    factor *= jb
+    return _profile(factor, beta_fixed, wy)
 
 
 def _grid_start(wy, w, lags, geom, observable, u_guess, fixed, group):
     """Starting log-BFi per curve: minimum of the (β-profiled) χ² over a grid, refined by
     a parabola through the grid minimum and its neighbours.
 
-    Also returns how many leading lags matter (the rest hold a weighted model below
-    1e-6 even at the grid's slowest flow) and that slowest log BFi per curve.
+    Also returns the model (g1², d log g1²/du) at each curve's grid point, how many
+    leading lags matter (the rest hold a weighted model below 1e-6 even at the grid's
+    slowest flow) and that slowest log BFi per curve.
 
     The grid spans the 1st-99th percentiles of the crossing-based guesses ± 0.6 (a factor
     1.8 in BFi) in steps of about :data:`_GRID_STEP`, at most 41 points; each geometry's
@@ -156,7 +220,7 @@ def _grid_start(wy, w, lags, geom, observable, u_guess, fixed, group):
     w_max = float(np.max(w)) if w.size else 0.0
     half_curv = np.full(u_guess.size, np.nan)
     g1sq = np.empty_like(w)
-    dg_du = np.empty_like(w)
+    dlog = np.empty_like(w)
     ww = w * w
     wwy = w * wy
     syy = np.einsum("ij,ij->i", wy, wy)
@@ -171,10 +235,9 @@ def _grid_start(wy, w, lags, geom, observable, u_guess, fixed, group):
         first = np.flatnonzero(group == g)[:1]
         geom_g = {k: v[first] for k, v in geom.items()}  # (1, 1): one geometry
         with np.errstate(over="ignore", invalid="ignore", under="ignore"):
-            table_g, slope_g = _g1_squared(grid[:, None], lags, geom_g, observable)
-        # einsum, not BLAS: small products, and threaded BLAS costs more than it saves here
-        cross = np.einsum("ij,kj->ik", wwy[rows], table_g)  # Σ w² (y - 1) g1²  (n_rows, n_grid)
-        power = np.einsum("ij,kj->ik", ww[rows], table_g * table_g)  # Σ w² g1⁴
+            table_g, slope_g, _ = _log_model(grid[:, None], lags, geom_g, observable)
+        cross = _products(wwy[rows], table_g)  # Σ w² (y - 1) g1²  (n_rows, n_grid)
+        power = _products(ww[rows], table_g * table_g)  # Σ w² g1⁴
         if fixed is None:
             with np.errstate(divide="ignore", invalid="ignore"):
                 beta = np.clip(cross / power, _BETA_MIN, BETA_MAX)
@@ -198,25 +261,58 @@ def _grid_start(wy, w, lags, geom, observable, u_guess, fixed, group):
         start[rows] = grid[best]
         if groups.size == 1:
             np.take(table_g, best, axis=0, out=g1sq)
-            np.take(slope_g, best, axis=0, out=dg_du)
+            np.take(slope_g, best, axis=0, out=dlog)
         else:
             g1sq[rows] = table_g[best]
-            dg_du[rows] = slope_g[best]
-    return start, half_curv, (g1sq, dg_du), n_needed, slowest
+            dlog[rows] = slope_g[best]
+    return start, half_curv, (g1sq, dlog), n_needed, slowest
 
 
-def _lm(
+def _products(a, table):
+    """``a @ table.T`` for (n, m) curves against an (n_grid, m) table.
+
+    BLAS in row blocks of at most :data:`_BLAS_BLOCK` multiply-adds: OpenBLAS runs a
+    product that small on one thread (its threshold is 65536 × 4 multiply-adds, recalled
+    from memory), and a threaded BLAS on a busy machine costs far more than it saves here.
+    """
+    n, m = a.shape
+    rows = max(1, _BLAS_BLOCK // max(m * table.shape[0], 1))
+    if n <= rows:
+        return a @ table.T
+    out = np.empty((n, table.shape[0]))
+    for start in range(0, n, rows):
+        np.matmul(a[start : start + rows], table.T, out=out[start : start + rows])
+    return out
+
+
+def _lm(*args, **kwargs):
+    """:func:`_lm_core` with floating-point warnings off (non-finite values are handled)."""
+    with np.errstate(all="ignore"):
+        return _lm_core(*args, **kwargs)
+
+
+def _lm_core(
     y, w, lags, geom, observable, u, beta, fit_beta, max_iter, xtol, ftol, model=None, curv0=None
 ):
     """Damped secant-Newton iteration in log-BFi with β profiled out; one chunk of curves.
 
-    The profiled χ²(u) is one-dimensional.  Its exact gradient is -2 Σ J·r (J the
-    reduced Jacobian column; r is orthogonal to the β column at the profiled β).  The
-    curvature starts at the Gauss–Newton value Σ J² and is replaced by the secant of
-    the gradient between the last two points evaluated (accepted or not) once that is
-    positive, which keeps convergence fast on noisy curves where Gauss–Newton alone
-    overshoots.  Steps are damped Levenberg–Marquardt style: a step that raises χ² is
-    rejected and the damping raised.
+    The profiled χ²(u) is one-dimensional.  Its exact gradient is -2 β Σ jd·r (jd the
+    weighted model derivative; the part of it along the β column drops out because r is
+    orthogonal to that column at the profiled β, Kaufman's simplification).  The
+    curvature starts at the Gauss–Newton value Σ J² (J the reduced Jacobian column) and
+    is replaced by the secant of the gradient between the last two points evaluated
+    (accepted or not) once that is positive, which keeps convergence fast on noisy curves
+    where Gauss–Newton alone overshoots.  Steps are damped Levenberg–Marquardt style: a
+    step that raises χ² is rejected and the damping raised.
+
+    A trial step of at most :data:`_TAYLOR_MAX` from an exactly evaluated point is first
+    judged on the second-order expansion of log g1² (:func:`_taylor_trial`, no
+    exponentials); if that ends the iteration, its β and residuals are the result.  Any
+    other trial (and any Taylor trial that does not end the iteration) is evaluated
+    exactly, so the path of the iteration is the exact one.
+
+    Curves that finish are written out; they leave the working arrays once a quarter of
+    the rows has finished (until then they stand still: copying the others costs more).
 
     Returns u, beta, n_iter, converged and the weighted residuals at the solution.
     """
@@ -228,34 +324,92 @@ def _lm(
     out_resid = np.empty_like(y)
     n_iter = np.zeros(n, dtype=int)
     converged = np.zeros(n, dtype=bool)
-    # working set: the curves still iterating; finished ones are written out and dropped
-    ids = np.arange(n)
+    ids = np.arange(n)  # working rows: curves still iterating, and finished ones standing still
+    alive = np.ones(n, dtype=bool)
     u = u.copy()
-    b, resid, chi, ju = _evaluate(u, fixed, wy, w, lags, geom, observable, model)
-    grad = -np.einsum("ij,ij->i", ju, resid)
+    if model is None:
+        b, resid, chi, power, jb, jd, dlog, lpp = _exact_trial(
+            u, fixed, wy, w, lags, geom, observable
+        )
+        exact = np.ones(n, dtype=bool)  # L'' known at u: Taylor trials allowed
+    else:
+        jb = model[0] * w
+        dlog = model[1]
+        b, resid, chi, power = _profile(jb, fixed, wy)
+        jd = jb * dlog
+        lpp = np.zeros_like(jb)
+        exact = np.zeros(n, dtype=bool)
+    grad = -b * np.einsum("ij,ij->i", jd, resid)
     first = np.full(n, np.nan) if curv0 is None else curv0.copy()
     prev_u = np.full(n, np.nan)
     prev_grad = np.full(n, np.nan)
     lam = np.full(n, 1e-3)
     for _ in range(max_iter):
-        if ids.size == 0:
+        if not alive.any():
             break
-        n_iter[ids] += 1
-        with np.errstate(divide="ignore", invalid="ignore"):
-            secant = (grad - prev_grad) / (u - prev_u)
-            curv = np.where(np.isfinite(first) & (first > 0), first, np.nan)
-            curv = np.where(np.isfinite(secant) & (secant > 0), secant, curv)
-            gauss = np.flatnonzero(~np.isfinite(curv))  # Gauss–Newton where nothing better
-            if gauss.size:
-                curv[gauss] = np.einsum("ij,ij->i", ju[gauss], ju[gauss])
-            du = -grad / (curv * (1.0 + lam))
+        n_iter[ids[alive]] += 1
+        secant = (grad - prev_grad) / (u - prev_u)
+        curv = np.where(np.isfinite(first) & (first > 0), first, np.nan)
+        curv = np.where(np.isfinite(secant) & (secant > 0), secant, curv)
+        gauss = np.flatnonzero(~np.isfinite(curv))  # Gauss–Newton where nothing better
+        if gauss.size:
+            # Σ J² = β² (Σ jd² - (Σ jd·jb)² / Σ jb²) with β free, β² Σ jd² with β held
+            jd_g, jb_g, b_g = jd[gauss], jb[gauss], b[gauss]
+            along = np.einsum("ij,ij->i", jd_g, jb_g) ** 2 / power[gauss]
+            if fixed is not None:
+                along[:] = 0.0
+            else:
+                along[~((b_g > _BETA_MIN) & (b_g < BETA_MAX))] = 0.0
+            curv[gauss] = b_g**2 * (np.einsum("ij,ij->i", jd_g, jd_g) - along)
+        du = -grad / (curv * (1.0 + lam))
         first[:] = np.nan
-        du = np.where(np.isfinite(du), np.clip(du, -3.0, 3.0), 0.0)
+        du = np.where(np.isfinite(du) & alive, np.clip(du, -3.0, 3.0), 0.0)
         u_t = u + du
-        b_t, r_t, chi_t, j_t = _evaluate(u_t, fixed, wy, w, lags, geom, observable)
-        g_t = -np.einsum("ij,ij->i", j_t, r_t)
-        better = chi_t < chi
         small = np.abs(du) <= xtol
+        taylor = exact & (np.abs(du) <= _TAYLOR_MAX)
+        need = alive.copy()  # rows evaluated exactly at u_t
+        if taylor.any() or not alive.all():
+            # rows that take no Taylor step get their current values (du = 0)
+            b_t, r_t, chi_t, pow_t = _taylor_trial(
+                np.where(taylor, du, 0.0), jb, dlog, lpp, fixed, wy
+            )
+            better = chi_t < chi
+            need &= ~(taylor & (small | (better & ((chi - chi_t) <= ftol * chi_t))))
+        n_need = int(np.count_nonzero(need))
+        if n_need == need.size:
+            b_t, r_t, chi_t, pow_t, jb_t, jd_t, dlog_t, lpp_t = _exact_trial(
+                u_t, fixed, wy, w, lags, geom, observable
+            )
+            g_t = -b_t * np.einsum("ij,ij->i", jd_t, r_t)
+            better = alive & (chi_t < chi)
+            if not better.all():  # rejected steps keep their old rows (trial arrays are ours)
+                worse = np.flatnonzero(~better)
+                r_t[worse], jb_t[worse], jd_t[worse] = resid[worse], jb[worse], jd[worse]
+                dlog_t[worse], lpp_t[worse] = dlog[worse], lpp[worse]
+            jb, jd, dlog, lpp = jb_t, jd_t, dlog_t, lpp_t
+        else:
+            # Taylor values stand for every row not evaluated exactly: rows that end now,
+            # and finished rows standing still (du = 0)
+            g_t = np.zeros_like(chi)
+            if n_need:
+                sel = np.flatnonzero(need)
+                ev = _exact_trial(
+                    u_t[sel], None if fixed is None else fixed[sel], wy[sel], w[sel], lags,
+                    {k: v[sel] for k, v in geom.items()}, observable,
+                )  # fmt: skip
+                b_t = np.array(b_t)  # a copy: with β fixed this is the caller's array
+                b_t[sel], r_t[sel], chi_t[sel], pow_t[sel] = ev[0], ev[1], ev[2], ev[3]
+                g_t[sel] = -ev[0] * np.einsum("ij,ij->i", ev[5], ev[1])
+                # accepted rows take the new model (in place: the old one is not needed)
+                moved = ev[2] < chi[sel]
+                rows = sel[moved]
+                jb[rows], jd[rows] = ev[4][moved], ev[5][moved]
+                dlog[rows], lpp[rows] = ev[6][moved], ev[7][moved]
+            better = alive & (chi_t < chi)
+            if not better.all():
+                worse = np.flatnonzero(~better)
+                r_t[worse] = resid[worse]
+        resid = r_t
         settled = (chi - chi_t) <= ftol * chi_t
         # secant pair: the other end is the old point (accepted) or the trial (rejected)
         prev_u = np.where(better, u, u_t)
@@ -263,24 +417,26 @@ def _lm(
         u = np.where(better, u_t, u)
         b = np.where(better, b_t, b)
         chi = np.where(better, chi_t, chi)
+        power = np.where(better, pow_t, power)
         grad = np.where(better, g_t, grad)
-        if not better.all():  # rejected steps keep their old rows (trial arrays are ours)
-            worse = ~better
-            r_t[worse] = resid[worse]
-            j_t[worse] = ju[worse]
-        resid, ju = r_t, j_t
+        exact |= better
         lam = np.where(better, lam * 0.3, np.maximum(lam * 4.0, 1e-2))
-        done = small | (better & settled)
+        done = alive & (small | (better & settled))
         converged[ids[done]] = True
-        stop = done | (lam > 1e12)
+        stop = done | (alive & (lam > 1e12))
         if stop.any():
             fin = ids[stop]
             out_u[fin], out_beta[fin], out_resid[fin] = u[stop], b[stop], resid[stop]
-            keep = ~stop
-            ids, u, b, chi, grad = ids[keep], u[keep], b[keep], chi[keep], grad[keep]
-            prev_u, prev_grad, lam, first = prev_u[keep], prev_grad[keep], lam[keep], first[keep]
-            resid, ju, wy, w = resid[keep], ju[keep], wy[keep], w[keep]
-            geom = {k: v[keep] for k, v in geom.items()}
-            fixed = None if fixed is None else fixed[keep]
-    out_u[ids], out_beta[ids], out_resid[ids] = u, b, resid
+            alive &= ~stop
+            if 4 * np.count_nonzero(alive) <= 3 * alive.size:
+                keep = alive
+                ids, u, b, chi, grad = ids[keep], u[keep], b[keep], chi[keep], grad[keep]
+                prev_u, prev_grad, lam = prev_u[keep], prev_grad[keep], lam[keep]
+                first, exact, power, alive = first[keep], exact[keep], power[keep], alive[keep]
+                resid, wy, w = resid[keep], wy[keep], w[keep]
+                jb, jd, dlog, lpp = jb[keep], jd[keep], dlog[keep], lpp[keep]
+                geom = {k: v[keep] for k, v in geom.items()}
+                fixed = None if fixed is None else fixed[keep]
+    last = ids[alive]
+    out_u[last], out_beta[last], out_resid[last] = u[alive], b[alive], resid[alive]
     return out_u, out_beta, n_iter, converged, out_resid
