@@ -17,19 +17,32 @@ import pandas as pd
 from fstats.design.matrix import DesignMatrix
 from fstats.errors import FitWarning, InputError, suggest
 from fstats.fit.autoregressive import default_max_ar_order
+from fstats.fit.coupling import CouplingSpread, combined_dof, coupling_covariance, coupling_spread
 from fstats.fit.diagnostics import acf, durbin_watson, ljung_box, r_squared, variance_share
 from fstats.fit.estimation import METHODS, ChannelEstimate, ChannelFitError, estimate_channel
 from fstats.fit.inference import TermTest, f_test, t_test
 from fstats.fit.robust import TUKEY_C
 from fstats.inputs.recording import Recording
 
-__all__ = ["COVARIANCES", "SubjectGLM", "ChannelFit", "ChannelFailure", "SubjectFit"]
+__all__ = [
+    "COVARIANCES",
+    "SHORT_COUPLINGS",
+    "SubjectGLM",
+    "ChannelFit",
+    "ChannelFailure",
+    "SubjectFit",
+]
 
 logger = logging.getLogger(__name__)
 
 #: Coefficient covariance estimators: the frequency-domain sandwich on the
 #: prewhitened data (default) or the model-based ``s² (X̃'WX̃)^-1``.
 COVARIANCES: tuple[str, ...] = ("spectral", "model")
+
+#: How the short-channel coefficient's uncertainty enters the covariance: ``banded``
+#: adds the between-band spread of the coupling (:mod:`fstats.fit.coupling`);
+#: ``single`` trusts the one fitted coefficient for every frequency.
+SHORT_COUPLINGS: tuple[str, ...] = ("banded", "single")
 
 
 @dataclass(frozen=True, eq=False)
@@ -57,7 +70,11 @@ class ChannelFit:
     diagnostics : dict
         ``r2``, ``durbin_watson`` (before/after whitening), ``ljung_box_p``,
         ``acf_before``, ``acf_after`` (lags 0..n), ``acf_lags_s``, ``short_share``,
-        ``converged``, ``n_iter``, ``n_used``, ``downweighted_fraction``.
+        ``converged``, ``n_iter``, ``n_used``, ``downweighted_fraction`` and, with
+        short columns, ``short_coupling`` (band couplings, τ, Q per short column).
+    coupling : tuple of CouplingSpread
+        Frequency dependence of each short column's coupling; its covariance
+        ``τ² s s'`` is added to :attr:`cov` (empty: nothing added).
     """
 
     channel: str
@@ -69,9 +86,9 @@ class ChannelFit:
     estimate: ChannelEstimate
     baseline_flow: float
     diagnostics: dict = field(default_factory=dict)
+    coupling: tuple[CouplingSpread, ...] = ()
 
     betas = property(lambda self: self.estimate.betas, doc="Coefficients, shape (k,).")
-    cov = property(lambda self: self.estimate.cov, doc="Coefficient covariance, shape (k, k).")
     dof = property(lambda self: self.estimate.dof, doc="Model residual degrees of freedom.")
     ar_coefs = property(lambda self: self.estimate.ar_coefs, doc="AR coefficients, shape (p,).")
     fitted = property(lambda self: self.estimate.fitted, doc="Fitted flow, shape (n_times,).")
@@ -87,9 +104,24 @@ class ChannelFit:
         return int(self.estimate.ar_coefs.size)
 
     @property
+    def cov(self) -> np.ndarray:
+        """Coefficient covariance, shape (k, k): the estimation's plus the coupling term."""
+        if not self.coupling:
+            return self.estimate.cov
+        return self.estimate.cov + coupling_covariance(self.coupling, len(self.names))
+
+    @property
     def se(self) -> np.ndarray:
         """Standard errors, shape (k,)."""
-        return np.sqrt(np.diag(self.estimate.cov))
+        return np.sqrt(np.diag(self.cov))
+
+    def contrast_dof(self, weights: np.ndarray) -> float:
+        """Degrees of freedom of a contrast row (Satterthwaite with the coupling term)."""
+        w = np.asarray(weights, dtype=float)
+        main = self.estimate.contrast_dof(w)
+        if not self.coupling:
+            return main
+        return combined_dof(w, float(w @ self.estimate.cov @ w), main, self.coupling)
 
     @property
     def t(self) -> np.ndarray:
@@ -106,9 +138,9 @@ class ChannelFit:
         w = np.asarray(weights, dtype=float)
         if kind == "F":
             w = np.atleast_2d(w)
-            dof = min(self.estimate.contrast_dof(row) for row in w)
+            dof = min(self.contrast_dof(row) for row in w)
             return f_test(self.betas, self.cov, w, dof)
-        return t_test(self.betas, self.cov, w, self.estimate.contrast_dof(w), alpha=alpha)
+        return t_test(self.betas, self.cov, w, self.contrast_dof(w), alpha=alpha)
 
 
 @dataclass(frozen=True, eq=False)
@@ -177,6 +209,11 @@ class SubjectGLM:
         :mod:`fstats.fit.covariance`), or the model-based ``s² (X̃'WX̃)^-1``.
     smoothing_hz : float, default=0.005
         Half-width of the periodogram smoother of the spectral covariance, in Hz.
+    short_coupling : {"banded", "single"}, default="banded"
+        ``banded``: the short-channel coupling is also estimated per frequency band
+        and its between-band spread is added to the covariance of the task terms
+        (:mod:`fstats.fit.coupling`; matters when the short channel follows the
+        task); ``single``: the one fitted coefficient is trusted.  Not used by OLS.
     max_iter : int, default=10
         Largest number of AR re-estimation rounds.
     tol : float, default=1e-5
@@ -200,6 +237,7 @@ class SubjectGLM:
     ar_order: int | None = None
     covariance: str = "spectral"
     smoothing_hz: float = 0.005
+    short_coupling: str = "banded"
     max_iter: int = 10
     tol: float = 1e-5
     tukey_c: float = TUKEY_C
@@ -225,6 +263,14 @@ class SubjectGLM:
                 f"one of {', '.join(COVARIANCES)}",
                 self.covariance,
                 hint=suggest(self.covariance, COVARIANCES),
+            )
+        if self.short_coupling not in SHORT_COUPLINGS:
+            raise InputError(
+                "fit options",
+                "short_coupling",
+                f"one of {', '.join(SHORT_COUPLINGS)}",
+                self.short_coupling,
+                hint=suggest(self.short_coupling, SHORT_COUPLINGS),
             )
         for name in ("max_ar_order", "ar_order"):
             value = getattr(self, name)
@@ -362,6 +408,9 @@ class SubjectGLM:
         baseline = float(np.mean(x[valid][:, ~task] @ est.betas[~task])) if valid.any() else np.nan
         short = np.array([k == "short" for k in col_kinds])
         short_part = x[:, short] @ est.betas[short] if short.any() else None
+        spreads: tuple[CouplingSpread, ...] = ()
+        if short.any() and self.short_coupling == "banded" and self.method != "ols":
+            spreads = coupling_spread(flow, x, list(np.flatnonzero(short)), est.weights, sfreq)
         max_lag = int(min(round(2.0 * sfreq), max(1, valid.sum() // 4)))
         white = est.whitened_residuals
         diagnostics = {
@@ -378,6 +427,18 @@ class SubjectGLM:
             "n_used": est.n_used,
             "downweighted_fraction": float(np.nanmean(est.weights < 0.5)),
         }
+        if spreads:
+            diagnostics["short_coupling"] = {
+                col_names[s.column]: {
+                    "band_edges_hz": s.band_edges_hz.tolist(),
+                    "coupling": s.couplings.tolist(),
+                    "coupling_sd": np.sqrt(s.variances).tolist(),
+                    "tau": float(np.sqrt(s.tau2)),
+                    "q": s.q,
+                    "fitted": float(est.betas[s.column]),
+                }
+                for s in spreads
+            }
         conditions = {
             cond: tuple(c for c in cols if c in col_names)
             for cond, cols in design.conditions.items()
@@ -392,4 +453,5 @@ class SubjectGLM:
             estimate=est,
             baseline_flow=baseline,
             diagnostics=diagnostics,
+            coupling=spreads,
         )
