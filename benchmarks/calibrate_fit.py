@@ -6,13 +6,20 @@ task-locked scalp flow change in about half of the recordings.  The design is
 ``designs/subtract_blocks.yaml`` (flow response, DCT drift, short-channel and cardiac
 regressors).  For each recording the long channel over the activated area
 (``frontal_a``) is fitted with the default method (AR-IRLS, spectral covariance),
-with AR prewhitening without robust weights (``ar``), with OLS, and with the default
-method but without the short-channel regressor; the
-false-positive rate of the ``subtract`` regressor at alpha 0.05 is reported.
+with the default method but trusting the single short-channel coupling
+(``single``: no between-band coupling term, :mod:`fstats.fit.coupling`), with AR
+prewhitening without robust weights (``ar``), with OLS, and with the default method
+but without the short-channel regressor; the false-positive rate of the ``subtract``
+regressor at alpha 0.05 is reported, also split by whether the recording has a
+task-locked scalp change.
 
 Effect run: ``effect_pct=15`` (cerebral), so the long channel's true percent change is
 ``truth["long_effect_pct"]`` (brain fraction × 15 %).  Reported: median recovered /
-true effect and the coverage of the 95 % confidence intervals.
+true effect and the coverage of the 95 % confidence intervals.  The simulator varies
+the response amplitude from block to block (coefficient of variation 0.15), so a
+recording's own mean response differs from the nominal 15 %; coverage is reported for
+the nominal truth (the acceptance figure) and, for reference, for the recording's
+realised truth (nominal × mean gain of its ``subtract`` blocks).
 
 Recordings are 900 s long (10 task cycles of 85 s), the simulator's default: long
 enough for ten blocks, short enough to run 1000 recordings in minutes.
@@ -69,13 +76,18 @@ def _one(task: tuple[int, float]) -> dict:
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         design = build_design(load_design(DESIGN), recording)
+        gains = np.array(sim.truth["block_gains"])
+        blocks = np.array([c == TERM for c in recording.events.conditions])
+        truth = float(sim.truth["long_effect_pct"][CHANNEL])
         out = {
             "seed": seed,
-            "truth_pct": float(sim.truth["long_effect_pct"][CHANNEL]),
+            "truth_pct": truth,
+            "realised_pct": truth * float(gains[blocks].mean()) if blocks.any() else truth,
             "scalp_task": float(sim.truth["scalp_task_pct"]) > 0,
         }
         variants = {
             "default": (SubjectGLM(block_averages=False), design),
+            "single": (SubjectGLM(block_averages=False, short_coupling="single"), design),
             "ar": (SubjectGLM(method="ar", block_averages=False), design),
             "ols": (SubjectGLM(method="ols", block_averages=False), design),
             "no_short": (SubjectGLM(block_averages=False), _without_short(design)),
@@ -97,7 +109,10 @@ def _summary(results: list[dict], label: str, null: bool) -> dict:
     ok = [r for r in results if r[label]["status"] == "ok"]
     p = np.array([r[label]["p"] for r in ok])
     est = np.array([r[label]["estimate_pct"] for r in ok])
+    se = np.array([r[label]["se_pct"] for r in ok])
     truth = np.array([r["truth_pct"] for r in ok])
+    realised = np.array([r["realised_pct"] for r in ok])
+    scalp = np.array([r["scalp_task"] for r in ok], dtype=bool)
     lo = np.array([r[label]["ci_low_pct"] for r in ok])
     hi = np.array([r[label]["ci_high_pct"] for r in ok])
     n = len(ok)
@@ -109,7 +124,6 @@ def _summary(results: list[dict], label: str, null: bool) -> dict:
     }
     if null:
         low, high = stats.binomtest(int(round(rate * n)), n).proportion_ci(0.95)
-        scalp = np.array([r["scalp_task"] for r in ok])
         out.update(
             false_positive_rate=rate,
             fpr_ci95=[float(low), float(high)],
@@ -119,12 +133,17 @@ def _summary(results: list[dict], label: str, null: bool) -> dict:
             mean_estimate_pct_without=float(np.mean(est[~scalp])) if (~scalp).any() else None,
         )
     else:
+        covered = (lo <= truth) & (truth <= hi)
         out.update(
             power=rate,
             median_ratio=float(np.median(est / truth)),
             median_estimate_pct=float(np.median(est)),
             median_truth_pct=float(np.median(truth)),
-            coverage=float(np.mean((lo <= truth) & (truth <= hi))),
+            coverage=float(np.mean(covered)),
+            coverage_with_scalp_task=float(np.mean(covered[scalp])) if scalp.any() else None,
+            coverage_without_scalp_task=float(np.mean(covered[~scalp])) if (~scalp).any() else None,
+            coverage_of_realised=float(np.mean((lo <= realised) & (realised <= hi))),
+            median_se_pct=float(np.median(se)),
         )
     return out
 
@@ -144,7 +163,7 @@ def main(argv=None) -> int:
             results = pool.map(_one, seeds, chunksize=4)
             summary[run] = {
                 lab: _summary(results, lab, effect == 0)
-                for lab in ("default", "ar", "ols", "no_short")
+                for lab in ("default", "single", "ar", "ols", "no_short")
             }
             print(run, json.dumps(summary[run], indent=1), flush=True)
     summary["seconds"] = round(time.perf_counter() - start, 1)
