@@ -227,6 +227,7 @@ def estimate_channel(
     whitener = Whitener(rows, valid)
     converged = False
     ar = None
+    preconditioner = None
     n_iter = 0
     for step in range(1, max_iter + 1):
         n_iter = step
@@ -238,7 +239,8 @@ def estimate_channel(
         if method == "ar-irls":
             white = whitener.apply(ar.coefs)
             yw, xw = white[0], white[1:]
-            fit = irls_rows(yw, xw, betas, c=tukey_c, tol=0.1 * tol)
+            fit = irls_rows(yw, xw, betas, c=tukey_c, tol=0.1 * tol, normal=preconditioner)
+            preconditioner = fit.normal  # the next round's X'WX differs little
             new, weights_w, scale_w = fit.betas, fit.weights, fit.scale
         else:
             new, normal = _whitened_ols(whitener, ar.coefs)

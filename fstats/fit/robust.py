@@ -227,6 +227,9 @@ class IRLSResult:
         Iterations used.
     converged : bool
         Whether the relative change of the coefficients fell below the tolerance.
+    normal : NormalEquations or None
+        The factored ``X'WX`` the last steps used (:func:`irls_rows` only), to start a
+        related fit from.
     """
 
     betas: np.ndarray
@@ -235,6 +238,7 @@ class IRLSResult:
     xtwx_inv: np.ndarray | None
     n_iter: int
     converged: bool
+    normal: NormalEquations | None = None
 
 
 def irls(
@@ -322,6 +326,7 @@ def irls_rows(
     c: float = TUKEY_C,
     max_iter: int = 50,
     tol: float = 1e-8,
+    normal: NormalEquations | None = None,
 ) -> IRLSResult:
     """The Tukey-bisquare M-estimate of :func:`irls`, regressors as rows, few Gram matrices.
 
@@ -335,6 +340,9 @@ def irls_rows(
         Starting coefficients.
     c, max_iter, tol
         As in :func:`irls`.
+    normal : NormalEquations, optional
+        A factored ``X'WX`` of a closely related problem (e.g. the previous AR round's)
+        to take the steps with; by default it is formed at the first step's weights.
 
     Returns
     -------
@@ -344,8 +352,9 @@ def irls_rows(
     Notes
     -----
     An IRLS step ``β⁺ = (X'WX)^-1 X'Wy`` is ``β + (X'WX)^-1 X'W e`` with ``e = y - Xβ``.
-    Here ``X'WX`` is factored at the first step's weights and kept while the steps
-    shrink by at least half each time (refactored otherwise), so a step costs two
+    Here ``X'WX`` is factored at the first step's weights (or taken from ``normal``)
+    and kept while the steps shrink by at least half each time (refactored at the
+    current weights otherwise), so a step costs two
     matrix-vector products, the MAD and the weights.  The iteration stops at the same
     fixed point ``X'W e = 0`` (weights and MAD scale recomputed every step) with the same
     stopping rule, ``||X Δβ|| < tol ||e||``.
@@ -353,8 +362,7 @@ def irls_rows(
     n = response.shape[0]
     betas = np.array(betas, dtype=float)
     resid = response - rows.T @ betas
-    normal = None
-    refresh = True
+    refresh = normal is None
     previous = np.inf
     converged = False
     weights = np.ones(n)
@@ -390,4 +398,5 @@ def irls_rows(
         xtwx_inv=None,
         n_iter=n_iter,
         converged=converged,
+        normal=normal,
     )
