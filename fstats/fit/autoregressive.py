@@ -21,7 +21,6 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import fft as _fft
-from scipy import signal
 
 __all__ = [
     "AR_METHODS",
@@ -274,6 +273,7 @@ def whiten(values: np.ndarray, coefs: np.ndarray, valid: np.ndarray) -> np.ndarr
     """
     x = np.where(np.reshape(valid, (-1,) + (1,) * (np.ndim(values) - 1)), values, 0.0)
     b = np.concatenate([[1.0], -np.asarray(coefs, dtype=float)])
+    kept = whitened_rows(valid, b.size - 1)
     if b.size == 1:
         filtered = x.astype(float)
     elif x.ndim == 1:  # one series: direct convolution beats the FFT at these lengths
@@ -282,10 +282,13 @@ def whiten(values: np.ndarray, coefs: np.ndarray, valid: np.ndarray) -> np.ndarr
         filtered = np.array(x, dtype=float)
         for i in range(1, b.size):
             filtered[i:] += b[i] * x[:-i]
-    else:
-        kernel = b.reshape((-1,) + (1,) * (x.ndim - 1))
-        filtered = signal.oaconvolve(x, kernel, mode="full", axes=0)[: x.shape[0]]
-    return filtered[whitened_rows(valid, b.size - 1)]
+    else:  # FFT convolution along time, one series per row (the fast layout)
+        rows = np.ascontiguousarray(x.T)
+        n_fft = _fft.next_fast_len(x.shape[0] + b.size - 1, real=True)
+        spectrum = _fft.rfft(rows, n=n_fft, axis=1) * _fft.rfft(b, n=n_fft)
+        out = _fft.irfft(spectrum, n=n_fft, axis=1)
+        return out[:, : x.shape[0]][:, kept].T  # (n_kept, n_columns), a transposed view
+    return filtered[kept]
 
 
 class Whitener:
