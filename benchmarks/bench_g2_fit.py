@@ -25,18 +25,23 @@ Usage::
 
 from __future__ import annotations
 
-import argparse
-import resource
-import statistics
-import sys
-import time
-import tracemalloc
+import os
 
-import numpy as np
-from scipy.optimize import curve_fit
+for _name in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_name, "1")  # before numpy: no BLAS thread contention
 
-from fstats.flow import fit_g2, g1_semi_infinite, g2_from_g1, g2_noise_sd, multi_tau_lags
-from fstats.flow.forward import effective_reflection
+import argparse  # noqa: E402
+import resource  # noqa: E402
+import statistics  # noqa: E402
+import sys  # noqa: E402
+import time  # noqa: E402
+import tracemalloc  # noqa: E402
+
+import numpy as np  # noqa: E402
+from scipy.optimize import curve_fit  # noqa: E402
+
+from fstats.flow import fit_g2, g1_semi_infinite, g2_from_g1, g2_noise_sd, multi_tau_lags  # noqa: E402
+from fstats.flow.forward import effective_reflection  # noqa: E402
 
 
 def simulate(minutes: float, rng: np.random.Generator):

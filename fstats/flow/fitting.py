@@ -28,7 +28,15 @@ import numpy as np
 from fstats.flow.forward import OBSERVABLES, _geometry
 from fstats.flow.noise import g2_noise_sd
 from fstats.flow.screening import BLOCKING_REASONS, join_reasons, screen_curves, stack_curves
-from fstats.flow.solver import _GEOM_KEYS, BETA_MAX, _grid_start, _lm, decay_product_cm2
+from fstats.flow.solver import (
+    _GEOM_KEYS,
+    BETA_MAX,
+    _buf,
+    _grid_start,
+    _lm,
+    _Workspace,
+    decay_product_cm2,
+)
 
 __all__ = ["WEIGHTINGS", "G2FitResult", "fit_g2"]
 
@@ -280,6 +288,7 @@ def fit_g2(
     x_half = decay_product_cm2(np.exp(-0.5), distinct, observable)[group_all]
     noise_model = sigma is None and weighting == "noise-model"
     x_e = decay_product_cm2(np.exp(-1.0), distinct, observable)[group_all] if noise_model else None
+    ws = _Workspace(min(chunk_size, n_curves), n_lags)
     for start in range(0, n_curves, chunk_size):
         sl = slice(start, min(start + chunk_size, n_curves))
         chunk_flags = _fit_chunk(
@@ -303,6 +312,7 @@ def fit_g2(
             xtol=xtol,
             ftol=ftol,
             out={k: v[sl] for k, v in out.items()},
+            ws=ws,
         )
         for reason, where in chunk_flags.items():
             flags[reason][sl] = where
@@ -376,6 +386,7 @@ def _fit_chunk(
     xtol,
     ftol,
     out,
+    ws=None,
 ):
     """Screen and fit one chunk of curves, writing into the views in ``out``."""
     n_chunk, n_lags = y_all.shape
@@ -384,25 +395,29 @@ def _fit_chunk(
     idx = np.flatnonzero(ok)
     if idx.size == 0:
         return flags
-    y = y_all[idx]
-    geom = {k: v[idx][:, None] for k, v in geom.items()}
-    group = group[idx]
+    every = idx.size == n_chunk  # the usual case: no fancy-index copies
+    n_ok = idx.size
+    y = y_all if every else y_all[idx]  # read only
+    geom = {k: (v if every else v[idx])[:, None] for k, v in geom.items()}
+    group = group if every else group[idx]
 
     # starting values
     first = np.argmax(in_range)
     head = slice(first, first + 3)
-    beta0 = np.clip(np.mean(y[:, head] - 1.0, axis=1), 0.01, 1.5)
-    b_start = beta0 if fit_beta else np.full(idx.size, float(beta))
-    ratio = (y - 1.0) / b_start[:, None]
+    beta0 = np.clip(np.mean(y[:, head], axis=1) - 1.0, 0.01, 1.5)
+    b_start = beta0 if fit_beta else np.full(n_ok, float(beta))
+    ym1 = np.subtract(y, 1.0, out=_buf(ws, "ym1", n_ok, n_lags))  # g2 - 1
     log_lags = np.log(lags)
     full = decay_floor is None and bool(in_range.all())  # the default: all lags, all curves
     if full:
         mask = None
-        above = np.sum(ratio > np.exp(-1.0), axis=1)  # lags where g1 > e^{-1/2}
+        # lags where (g2 - 1)/β > e^{-1}, i.e. g1 > e^{-1/2}
+        above = np.count_nonzero(ym1 > (np.exp(-1.0) * b_start)[:, None], axis=1)
         pos_lo = np.clip(above - 1, 0, n_lags - 1)
         pos_hi = np.clip(above, 0, n_lags - 1)
-        n_fit = np.full(idx.size, n_lags)
+        n_fit = np.full(n_ok, n_lags)
     else:
+        ratio = ym1 / b_start[:, None]
         mask = np.broadcast_to(in_range, y.shape).copy()
         if decay_floor is not None:
             keep = np.sum(mask & (ratio >= decay_floor), axis=1)
@@ -417,44 +432,53 @@ def _fit_chunk(
         pos_hi = np.argmax(rank >= np.minimum(above + 1, n_fit)[:, None], axis=1)
     log_tau_e = 0.5 * (log_lags[pos_lo] + log_lags[pos_hi])
     log_tau_e = np.where(above >= n_fit, log_lags[pos_hi] + np.log(2.0), log_tau_e)
-    u0 = np.log(x_half[idx]) - log_tau_e
+    u0 = np.log(x_half if every else x_half[idx]) - log_tau_e
 
+    w = _buf(ws, "w", n_ok, n_lags)
     if sigma is not None:
-        s = np.broadcast_to(sigma, (n_chunk, n_lags))[idx]
-        w = 1.0 / s if full else np.where(mask, 1.0 / s, 0.0)
+        s = np.broadcast_to(sigma, (n_chunk, n_lags))
+        s = s if every else s[idx]
+        np.divide(1.0, s, out=w)
     elif weighting == "noise-model":
-        gamma = np.exp(u0) / x_e[idx]  # 1/s: g1 ≈ e^{-Γτ}, Γ = BFi0 / (BFi·τ at g1 = 1/e)
+        x_e = x_e if every else x_e[idx]
+        gamma = np.exp(u0) / x_e  # 1/s: g1 ≈ e^{-Γτ}, Γ = BFi0 / (BFi·τ at g1 = 1/e)
         s = g2_noise_sd(
             lags,
             beta=b_start,
             decay_rate_hz=gamma,
-            count_rate_hz=rate[idx],
-            integration_time_s=t_int[idx],
+            count_rate_hz=rate if every else rate[idx],
+            integration_time_s=t_int if every else t_int[idx],
         )
-        w = 1.0 / s if full else np.where(mask, 1.0 / s, 0.0)
+        np.divide(1.0, s, out=w)
     else:
-        w = np.ones(y.shape) if full else mask.astype(float)
+        s = None
+        w.fill(1.0)
     if not full:
-        y = np.where(mask, y, 1.0)  # masked lags carry zero weight; keep them finite
+        w[~mask] = 0.0
+        ym1[~mask] = 0.0  # masked lags carry zero weight; keep them finite
+    wy = np.multiply(w, ym1, out=_buf(ws, "wy", n_ok, n_lags))
 
     fixed = None if fit_beta else b_start
-    wy = w * (y - 1.0)
     u_start, curv0, model, n_keep, slowest = _grid_start(
-        wy, w, lags, geom, observable, u0, fixed, group
+        wy, w, lags, geom, observable, u0, fixed, group, ws
     )
     # iterate on the lags that matter; the others add a constant (wy²) to χ²
     cut = slice(0, n_keep)
     u, b, n_iter, converged, resid = _lm(
-        y[:, cut], w[:, cut], lags[cut], geom, observable, u_start, b_start, fit_beta,
+        ym1[:, cut], w[:, cut], lags[cut], geom, observable, u_start, b_start, fit_beta,
         max_iter, xtol, ftol, model=(model[0][:, cut], model[1][:, cut]), curv0=curv0,
+        wy=wy[:, cut], ws=ws,
     )  # fmt: skip
     if n_keep < n_lags:
-        resid = np.concatenate([resid, wy[:, n_keep:]], axis=1)
+        res_full = _buf(ws, "_tail", n_ok, n_lags)  # the solver's scratch is free now
+        res_full[:, :n_keep] = resid
+        res_full[:, n_keep:] = wy[:, n_keep:]
+        resid = res_full
         slow = np.flatnonzero(u < slowest)  # ended slower than the grid: refit on all lags
         if slow.size:
             u_s, b_s, it_s, conv_s, r_s = _lm(
-                y[slow], w[slow], lags, {k: v[slow] for k, v in geom.items()}, observable,
-                u[slow], b[slow], fit_beta, max_iter, xtol, ftol,
+                ym1[slow] + 1.0, w[slow], lags, {k: v[slow] for k, v in geom.items()},
+                observable, u[slow], b[slow], fit_beta, max_iter, xtol, ftol,
             )  # fmt: skip
             u[slow], b[slow], resid[slow] = u_s, b_s, r_s
             n_iter[slow] += it_s
@@ -462,14 +486,12 @@ def _fit_chunk(
     n_used = n_fit
     n_par = 2 if fit_beta else 1
     chi = np.einsum("ij,ij->i", resid, resid)
-    if full:
-        raw = np.divide(resid, w, out=np.zeros_like(resid), where=w > 0)  # unweighted
-        diff = np.diff(resid, axis=1)
-    else:
-        with np.errstate(divide="ignore", invalid="ignore"):
-            raw = np.where(w > 0, resid / w, 0.0)  # unweighted residual on the lags used
-        pair = mask[:, 1:] & mask[:, :-1]
-        diff = np.where(pair, np.diff(resid, axis=1), 0.0)
+    raw = _buf(ws, "_q", n_ok, n_lags)  # unweighted residual on the lags used
+    raw.fill(0.0)
+    np.divide(resid, w, out=raw, where=w > 0)
+    diff = np.subtract(resid[:, 1:], resid[:, :-1], out=_buf(ws, "_k", n_ok, n_lags - 1))
+    if not full:
+        diff[~(mask[:, 1:] & mask[:, :-1])] = 0.0
     with np.errstate(divide="ignore", invalid="ignore"):
         misfit = chi / (0.5 * np.einsum("ij,ij->i", diff, diff))
     out["bfi"][idx] = np.exp(u)

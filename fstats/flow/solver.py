@@ -57,7 +57,32 @@ def decay_product_cm2(level: float, geom: dict, observable: str) -> np.ndarray:
     return np.exp(0.5 * (lo + hi))
 
 
-def _log_model(u, lags, geom, observable, curvature=False):
+class _Workspace:
+    """Named scratch arrays of up to (rows, cols) floats, reused from chunk to chunk.
+
+    Fresh arrays of a few hundred kB come from the operating system page by page (and
+    go back when freed), which on this workload costs as much as the arithmetic; the
+    fitter therefore writes its per-lag arrays into these.  ``take(name, n, m)`` gives a
+    C-contiguous (n, m) view of the buffer called ``name``; two arrays alive at the same
+    time must have different names.  ``None`` in place of a workspace allocates afresh.
+    """
+
+    def __init__(self, rows: int, cols: int):
+        self.size = rows * cols
+        self._flat: dict[str, np.ndarray] = {}
+
+    def take(self, name: str, n: int, m: int) -> np.ndarray:
+        flat = self._flat.get(name)
+        if flat is None or flat.size < n * m:
+            flat = self._flat[name] = np.empty(max(self.size, n * m))
+        return flat[: n * m].reshape(n, m)
+
+
+def _buf(ws, name, n, m):
+    return np.empty((n, m)) if ws is None else ws.take(name, n, m)
+
+
+def _log_model(u, lags, geom, observable, curvature=False, ws=None, out=("g", "dlog", "lpp")):
     """g1², L' = d log g1²/du and, with ``curvature``, L'' = d² log g1²/du² per lag.
 
     ``u`` is log-BFi, shape (n, 1) (or (n_grid, 1) for a table).  With q = flow_coef·BFi·τ,
@@ -67,60 +92,71 @@ def _log_model(u, lags, geom, observable, curvature=False):
         L'  = s · q / K
         L'' = (q / K) · [(s2 - s²) · q / (2K) + s · (1 - q / (2K²))]
 
-    Written with in-place operations: this is the hot loop of the fitter.
+    The results go into the workspace arrays named by ``out`` (fresh arrays without a
+    workspace).  Written with in-place operations: this is the hot loop of the fitter.
     """
-    q = (geom["flow_coef"] * np.exp(u)) * lags
-    k = q + geom["k_static_sq"]
-    np.sqrt(k, out=k)
+    n, m = u.shape[0], lags.size
     r1, r2 = geom["r1"], geom["r2"]
     k0 = np.sqrt(geom["k_static_sq"])
-    tail = k * (r1 - r2)
-    np.maximum(tail, _EXP_FLOOR, out=tail)  # below e^-300 the value is 0 for all purposes,
-    np.exp(tail, out=tail)  # e^{-K (r2 - r1)}   and exp() is much slower in underflow
-    s2 = None
+    q = _buf(ws, "_q", n, m)
+    np.multiply(geom["flow_coef"] * np.exp(u), lags, out=q)
+    k = _buf(ws, "_k", n, m)
+    np.add(q, geom["k_static_sq"], out=k)
+    np.sqrt(k, out=k)
+    tail = _buf(ws, "_tail", n, m)
+    np.multiply(k, r1 - r2, out=tail)
+    np.exp(tail, out=tail)  # e^{-K (r2 - r1)}: r2 - r1 is small, this never underflows
+    value = _buf(ws, "_value", n, m)
+    slope = _buf(ws, "_slope", n, m)
+    s2 = _buf(ws, out[2], n, m) if curvature else None
     if observable == "fluence":
         inv_r1 = 1.0 / r1
-        value = tail * (-1.0 / r2)
+        np.multiply(tail, -1.0 / r2, out=value)
         value += inv_r1
         value0 = inv_r1 - np.exp(-k0 * (r2 - r1)) / r2
-        slope = tail - 1.0  # d log G/dK = -(1 - tail)/value
-        if curvature:
-            s2 = tail * (-r2)  # G''/G = (r1 - r2·tail)/value
+        np.subtract(tail, 1.0, out=slope)  # d log G/dK = -(1 - tail)/value
+        if curvature:  # G''/G = (r1 - r2·tail)/value
+            np.multiply(tail, -r2, out=s2)
             s2 += r1
     else:
         a1 = geom["z0"] / r1**2
         a2 = (geom["z_image"] / r2**2) * tail
-        value = a1 * (k + 1.0 / r1) + a2 * (k + 1.0 / r2)
+        np.multiply(a1, k + 1.0 / r1, out=value)
+        value += a2 * (k + 1.0 / r2)
         value0 = a1 * (k0 + 1.0 / r1) + geom["z_image"] * np.exp(-k0 * (r2 - r1)) / r2**2 * (
             k0 + 1.0 / r2
         )
-        slope = -k * (a1 * r1 + a2 * r2)
+        np.multiply(-k, a1 * r1 + a2 * r2, out=slope)
         if curvature:  # G''/G = -[a1 r1 (1 - K r1) + a2 r2 (1 - K r2)] / value
-            s2 = (k * r1 - 1.0) * (a1 * r1) + (k * r2 - 1.0) * (a2 * r2)
-    inv_value = np.divide(1.0, value)
+            np.multiply(k * r1 - 1.0, a1 * r1, out=s2)
+            s2 += (k * r2 - 1.0) * (a2 * r2)
+    inv_value = np.divide(1.0, value, out=tail)  # the tail is not needed any more
     slope *= inv_value
-    g1sq = k * (-2.0 * r1)
+    g1sq = _buf(ws, out[0], n, m)
+    np.multiply(k, -2.0 * r1, out=g1sq)
     g1sq += 2.0 * k0 * r1
-    np.maximum(g1sq, _EXP_FLOOR, out=g1sq)
-    np.exp(g1sq, out=g1sq)  # e^{-2 (K - K0) r1}
+    np.maximum(g1sq, _EXP_FLOOR, out=g1sq)  # below e^-300 the value is 0 for all purposes,
+    np.exp(g1sq, out=g1sq)  # e^{-2 (K - K0) r1}   and exp() is much slower in underflow
     value *= 1.0 / value0
     value *= value
     g1sq *= value
     q /= k  # q/K
+    dlog = _buf(ws, out[1], n, m)
+    np.multiply(q, slope, out=dlog)  # L'
     if not curvature:
-        q *= slope
-        return g1sq, q, None
+        return g1sq, dlog, None
     s2 *= inv_value
-    s2 -= slope * slope  # d s/dK = G''/G - s²
-    s2 *= 0.5 * q
-    value = q / k  # reuse: q / K²
+    np.multiply(slope, slope, out=value)
+    s2 -= value  # d s/dK = G''/G - s²
+    s2 *= q
+    s2 *= 0.5
+    np.divide(q, k, out=value)  # q / K²
     value *= -0.5
     value += 1.0
     value *= slope
     s2 += value
     s2 *= q  # L''
-    q *= slope  # L'
-    return g1sq, q, s2
+    return g1sq, dlog, s2
 
 
 def _g1_squared(u, lags, geom, observable):
@@ -134,9 +170,9 @@ def _g1_squared(u, lags, geom, observable):
     return g1sq, dlog
 
 
-def _profile(jb, beta_fixed, wy):
+def _profile(jb, beta_fixed, wy, resid=None):
     """β (profiled or fixed), weighted residual, χ² and Σ jb² for the weighted β column
-    ``jb`` = w·g1² of each curve."""
+    ``jb`` = w·g1² of each curve; the residual goes into ``resid`` when given."""
     power = np.einsum("ij,ij->i", jb, jb)
     if beta_fixed is None:
         # β enters linearly: its least-squares value for this u (variable projection),
@@ -144,7 +180,7 @@ def _profile(jb, beta_fixed, wy):
         beta = np.clip(np.einsum("ij,ij->i", jb, wy) / power, _BETA_MIN, BETA_MAX)
     else:
         beta = beta_fixed
-    resid = jb * (-beta[:, None])
+    resid = np.multiply(jb, -beta[:, None], out=resid)
     resid += wy
     chi = np.einsum("ij,ij->i", resid, resid)
     return beta, resid, chi, power
@@ -165,16 +201,21 @@ def _evaluate(u, beta_fixed, wy, w, lags, geom, observable):
     return beta, resid, chi, ju
 
 
-def _exact_trial(u, beta_fixed, wy, w, lags, geom, observable):
+def _exact_trial(u, beta_fixed, wy, w, lags, geom, observable, ws, tag, rtag):
     """Everything the iteration keeps about a point ``u``: β, weighted residual, χ², Σ jb²,
-    jb = w·g1², jd = w·d(g1²)/du, L' and L'' (see :func:`_log_model`)."""
-    jb, dlog, lpp = _log_model(u[:, None], lags, geom, observable, curvature=True)
+    jb = w·g1², jd = w·d(g1²)/du, L' and L'' (see :func:`_log_model`); the per-lag arrays
+    in the workspace sets ``tag`` (model) and ``rtag`` (residual)."""
+    n, m = wy.shape
+    jb, dlog, lpp = _log_model(
+        u[:, None], lags, geom, observable, True, ws, ("jb" + tag, "dlog" + tag, "lpp" + tag)
+    )
     jb *= w
-    beta, resid, chi, power = _profile(jb, beta_fixed, wy)
-    return beta, resid, chi, power, jb, jb * dlog, dlog, lpp
+    beta, resid, chi, power = _profile(jb, beta_fixed, wy, _buf(ws, "r" + rtag, n, m))
+    jd = np.multiply(jb, dlog, out=_buf(ws, "jd" + tag, n, m))
+    return beta, resid, chi, power, jb, jd, dlog, lpp
 
 
-def _taylor_trial(du, jb, dlog, lpp, beta_fixed, wy):
+def _taylor_trial(du, jb, dlog, lpp, beta_fixed, wy, ws, tag):
     """β, weighted residual, χ² and Σ jb² at u + du from the model at u, without evaluating it.
 
     log g1² is expanded to second order in du, a = L' du + L'' du²/2, and e^a by its
@@ -184,11 +225,12 @@ def _taylor_trial(du, jb, dlog, lpp, beta_fixed, wy):
     the χ² comparison that follows; on lags where g1² is vanishingly small the relative
     error grows, its absolute size does not.
     """
+    n, m = wy.shape
     step = du[:, None]
-    a = lpp * (0.5 * step)
+    a = np.multiply(lpp, 0.5 * step, out=_buf(ws, "_q", n, m))
     a += dlog
     a *= step
-    factor = a * (1.0 / 24.0)
+    factor = np.multiply(a, 1.0 / 24.0, out=_buf(ws, "_k", n, m))
     factor += 1.0 / 6.0
     factor *= a
     factor += 0.5
@@ -197,10 +239,10 @@ def _taylor_trial(du, jb, dlog, lpp, beta_fixed, wy):
     factor *= a
     factor += 1.0
     factor *= jb
-    return _profile(factor, beta_fixed, wy)
+    return _profile(factor, beta_fixed, wy, _buf(ws, "r" + tag, n, m))
 
 
-def _grid_start(wy, w, lags, geom, observable, u_guess, fixed, group):
+def _grid_start(wy, w, lags, geom, observable, u_guess, fixed, group, ws=None):
     """Starting log-BFi per curve: minimum of the (β-profiled) χ² over a grid, refined by
     a parabola through the grid minimum and its neighbours.
 
@@ -219,10 +261,11 @@ def _grid_start(wy, w, lags, geom, observable, u_guess, fixed, group):
     n_needed = 3  # lags that matter for any curve down to its grid's slowest flow
     w_max = float(np.max(w)) if w.size else 0.0
     half_curv = np.full(u_guess.size, np.nan)
-    g1sq = np.empty_like(w)
-    dlog = np.empty_like(w)
-    ww = w * w
-    wwy = w * wy
+    n, m = w.shape
+    g1sq = _buf(ws, "g_grid", n, m)
+    dlog = _buf(ws, "dlog_grid", n, m)
+    ww = np.multiply(w, w, out=_buf(ws, "_q", n, m))
+    wwy = np.multiply(w, wy, out=_buf(ws, "_k", n, m))
     syy = np.einsum("ij,ij->i", wy, wy)
     groups = np.unique(group)
     for g in groups:
@@ -260,8 +303,8 @@ def _grid_start(wy, w, lags, geom, observable, u_guess, fixed, group):
         half_curv[rows] = np.where(inner, 0.5 * (c_m - 2.0 * c_0 + c_p) / step**2, np.nan)
         start[rows] = grid[best]
         if groups.size == 1:
-            np.take(table_g, best, axis=0, out=g1sq)
-            np.take(slope_g, best, axis=0, out=dlog)
+            np.take(table_g, best, 0, g1sq, "clip")
+            np.take(slope_g, best, 0, dlog, "clip")
         else:
             g1sq[rows] = table_g[best]
             dlog[rows] = slope_g[best]
@@ -291,9 +334,14 @@ def _lm(*args, **kwargs):
         return _lm_core(*args, **kwargs)
 
 
+def _other(tag):
+    return "1" if tag == "0" else "0"
+
+
 def _lm_core(
-    y, w, lags, geom, observable, u, beta, fit_beta, max_iter, xtol, ftol, model=None, curv0=None
-):
+    y, w, lags, geom, observable, u, beta, fit_beta, max_iter, xtol, ftol, model=None,
+    curv0=None, wy=None, ws=None,
+):  # fmt: skip
     """Damped secant-Newton iteration in log-BFi with β profiled out; one chunk of curves.
 
     The profiled χ²(u) is one-dimensional.  Its exact gradient is -2 β Σ jd·r (jd the
@@ -313,31 +361,37 @@ def _lm_core(
 
     Curves that finish are written out; they leave the working arrays once a quarter of
     the rows has finished (until then they stand still: copying the others costs more).
+    Per-lag arrays live in the workspace ``ws`` (:class:`_Workspace`), two sets that
+    take turns as current and trial values.
 
     Returns u, beta, n_iter, converged and the weighted residuals at the solution.
     """
-    n = y.shape[0]
-    wy = w * (y - 1.0)
+    n, m = y.shape
+    if wy is None:
+        wy = w * (y - 1.0)
     fixed = None if fit_beta else beta.copy()
     out_u = u.copy()
     out_beta = beta.copy()
-    out_resid = np.empty_like(y)
+    out_resid = _buf(ws, "out_resid", n, m)
     n_iter = np.zeros(n, dtype=int)
     converged = np.zeros(n, dtype=bool)
     ids = np.arange(n)  # working rows: curves still iterating, and finished ones standing still
     alive = np.ones(n, dtype=bool)
     u = u.copy()
+    rtag, mtag, ctag = "0", "0", "0"  # workspace sets of the residual, model and data rows
     if model is None:
         b, resid, chi, power, jb, jd, dlog, lpp = _exact_trial(
-            u, fixed, wy, w, lags, geom, observable
+            u, fixed, wy, w, lags, geom, observable, ws, mtag, rtag
         )
         exact = np.ones(n, dtype=bool)  # L'' known at u: Taylor trials allowed
     else:
-        jb = model[0] * w
-        dlog = model[1]
-        b, resid, chi, power = _profile(jb, fixed, wy)
-        jd = jb * dlog
-        lpp = np.zeros_like(jb)
+        jb = np.multiply(model[0], w, out=_buf(ws, "jb0", n, m))
+        dlog = _buf(ws, "dlog0", n, m)
+        dlog[...] = model[1]
+        b, resid, chi, power = _profile(jb, fixed, wy, _buf(ws, "r0", n, m))
+        jd = np.multiply(jb, dlog, out=_buf(ws, "jd0", n, m))
+        lpp = _buf(ws, "lpp0", n, m)
+        lpp.fill(0.0)
         exact = np.zeros(n, dtype=bool)
     grad = -b * np.einsum("ij,ij->i", jd, resid)
     first = np.full(n, np.nan) if curv0 is None else curv0.copy()
@@ -347,6 +401,7 @@ def _lm_core(
     for _ in range(max_iter):
         if not alive.any():
             break
+        n_act = ids.size
         n_iter[ids[alive]] += 1
         secant = (grad - prev_grad) / (u - prev_u)
         curv = np.where(np.isfinite(first) & (first > 0), first, np.nan)
@@ -368,34 +423,39 @@ def _lm_core(
         small = np.abs(du) <= xtol
         taylor = exact & (np.abs(du) <= _TAYLOR_MAX)
         need = alive.copy()  # rows evaluated exactly at u_t
+        r_tag = _other(rtag)
         if taylor.any() or not alive.all():
             # rows that take no Taylor step get their current values (du = 0)
             b_t, r_t, chi_t, pow_t = _taylor_trial(
-                np.where(taylor, du, 0.0), jb, dlog, lpp, fixed, wy
+                np.where(taylor, du, 0.0), jb, dlog, lpp, fixed, wy, ws, r_tag
             )
             better = chi_t < chi
             need &= ~(taylor & (small | (better & ((chi - chi_t) <= ftol * chi_t))))
         n_need = int(np.count_nonzero(need))
-        if n_need == need.size:
+        if n_need == n_act:
+            m_tag = _other(mtag)
             b_t, r_t, chi_t, pow_t, jb_t, jd_t, dlog_t, lpp_t = _exact_trial(
-                u_t, fixed, wy, w, lags, geom, observable
+                u_t, fixed, wy, w, lags, geom, observable, ws, m_tag, r_tag
             )
             g_t = -b_t * np.einsum("ij,ij->i", jd_t, r_t)
             better = alive & (chi_t < chi)
-            if not better.all():  # rejected steps keep their old rows (trial arrays are ours)
+            if not better.all():  # rejected steps keep their old rows
                 worse = np.flatnonzero(~better)
                 r_t[worse], jb_t[worse], jd_t[worse] = resid[worse], jb[worse], jd[worse]
                 dlog_t[worse], lpp_t[worse] = dlog[worse], lpp[worse]
-            jb, jd, dlog, lpp = jb_t, jd_t, dlog_t, lpp_t
+            jb, jd, dlog, lpp, mtag = jb_t, jd_t, dlog_t, lpp_t, m_tag
         else:
             # Taylor values stand for every row not evaluated exactly: rows that end now,
             # and finished rows standing still (du = 0)
             g_t = np.zeros_like(chi)
             if n_need:
                 sel = np.flatnonzero(need)
+                n_sel = sel.size
                 ev = _exact_trial(
-                    u_t[sel], None if fixed is None else fixed[sel], wy[sel], w[sel], lags,
-                    {k: v[sel] for k, v in geom.items()}, observable,
+                    u_t[sel], None if fixed is None else fixed[sel],
+                    np.take(wy, sel, 0, _buf(ws, "wy_p", n_sel, m), "clip"),
+                    np.take(w, sel, 0, _buf(ws, "w_p", n_sel, m), "clip"), lags,
+                    {k: v[sel] for k, v in geom.items()}, observable, ws, "_p", "_p",
                 )  # fmt: skip
                 b_t = np.array(b_t)  # a copy: with β fixed this is the caller's array
                 b_t[sel], r_t[sel], chi_t[sel], pow_t[sel] = ev[0], ev[1], ev[2], ev[3]
@@ -409,7 +469,7 @@ def _lm_core(
             if not better.all():
                 worse = np.flatnonzero(~better)
                 r_t[worse] = resid[worse]
-        resid = r_t
+        resid, rtag = r_t, r_tag
         settled = (chi - chi_t) <= ftol * chi_t
         # secant pair: the other end is the old point (accepted) or the trial (rejected)
         prev_u = np.where(better, u, u_t)
@@ -426,17 +486,29 @@ def _lm_core(
         stop = done | (alive & (lam > 1e12))
         if stop.any():
             fin = ids[stop]
-            out_u[fin], out_beta[fin], out_resid[fin] = u[stop], b[stop], resid[stop]
+            out_u[fin], out_beta[fin] = u[stop], b[stop]
+            if n_act == n:  # rows still in place: a masked copy, no gather
+                np.copyto(out_resid, resid, where=stop[:, None])
+            else:
+                out_resid[fin] = resid[stop]
             alive &= ~stop
-            if 4 * np.count_nonzero(alive) <= 3 * alive.size:
+            n_live = int(np.count_nonzero(alive))
+            if 0 < n_live and 4 * n_live <= 3 * n_act:
                 keep = alive
                 ids, u, b, chi, grad = ids[keep], u[keep], b[keep], chi[keep], grad[keep]
                 prev_u, prev_grad, lam = prev_u[keep], prev_grad[keep], lam[keep]
-                first, exact, power, alive = first[keep], exact[keep], power[keep], alive[keep]
-                resid, wy, w = resid[keep], wy[keep], w[keep]
-                jb, jd, dlog, lpp = jb[keep], jd[keep], dlog[keep], lpp[keep]
+                first, exact, power = first[keep], exact[keep], power[keep]
                 geom = {k: v[keep] for k, v in geom.items()}
                 fixed = None if fixed is None else fixed[keep]
+                rtag, mtag, ctag = _other(rtag), _other(mtag), _other(ctag)
+                resid = np.compress(keep, resid, 0, out=_buf(ws, "r" + rtag, n_live, m))
+                jb = np.compress(keep, jb, 0, out=_buf(ws, "jb" + mtag, n_live, m))
+                jd = np.compress(keep, jd, 0, out=_buf(ws, "jd" + mtag, n_live, m))
+                dlog = np.compress(keep, dlog, 0, out=_buf(ws, "dlog" + mtag, n_live, m))
+                lpp = np.compress(keep, lpp, 0, out=_buf(ws, "lpp" + mtag, n_live, m))
+                wy = np.compress(keep, wy, 0, out=_buf(ws, "wy_c" + ctag, n_live, m))
+                w = np.compress(keep, w, 0, out=_buf(ws, "w_c" + ctag, n_live, m))
+                alive = alive[keep]
     last = ids[alive]
     out_u[last], out_beta[last], out_resid[last] = u[alive], b[alive], resid[alive]
     return out_u, out_beta, n_iter, converged, out_resid
