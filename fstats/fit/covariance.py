@@ -115,6 +115,7 @@ def spectral_sandwich(
     smoothing_bins: int,
     columns: int | None = None,
     bread: np.ndarray | None = None,
+    weighted_design: np.ndarray | None = None,
 ) -> SpectralCovariance:
     """Frequency-domain sandwich covariance of a (prewhitened, weighted) regression.
 
@@ -135,6 +136,8 @@ def spectral_sandwich(
     bread : ndarray, shape (k, k), optional
         The sandwich's bread ``B`` (default ``xtwx_inv``); for an M-estimator
         ``(X̃' diag(ψ') X̃)^-1``.  ``xtwx_inv`` is still used for the leverage.
+    weighted_design : ndarray, shape (n, k), optional
+        ``√W X̃`` if the caller has it already (saves forming it again).
 
     Returns
     -------
@@ -160,7 +163,9 @@ def spectral_sandwich(
     if n_fft % 2 == 0:
         side[-1] = 1.0
     g = fft.rfft(rows, n=n_fft, axis=1)
-    if np.all(weights == 1.0):
+    if weighted_design is not None:
+        gw = fft.rfft(weighted_design.T, n=n_fft, axis=1)
+    elif np.all(weights == 1.0):
         gw = g
     else:
         gw = fft.rfft(rows * np.sqrt(weights), n=n_fft, axis=1)

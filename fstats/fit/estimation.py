@@ -280,7 +280,13 @@ def estimate_channel(
         if method == "ar-irls":
             bread = _bisquare_bread(xw, ew, scale_w, tukey_c, xtwx_inv)
         spectral = spectral_sandwich(
-            xw.T, ew, weights_w, xtwx_inv, smoothing_bins=bins, bread=bread
+            xw.T,
+            ew,
+            weights_w,
+            xtwx_inv,
+            smoothing_bins=bins,
+            bread=bread,
+            weighted_design=root_rows.T if method == "ar-irls" else None,
         )
         cov = spectral.cov
     fitted = np.where(valid, fitted0, np.nan)

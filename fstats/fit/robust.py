@@ -162,6 +162,27 @@ class NormalEquations:
         return vt.T @ ((u.T @ response) / sv) / self.norms
 
 
+def _mad_near(residuals: np.ndarray, guess: float | None) -> float:
+    """:func:`mad_scale`, exactly, found faster when a scale near the answer is known.
+
+    Only the absolute residuals within ±5 % of ``guess`` (times 0.6745) are partitioned;
+    when the middle order statistics fall outside that window, the full MAD is taken.
+    """
+    if guess is None or not guess > 0:
+        return mad_scale(residuals)
+    a = np.abs(residuals)
+    n = a.size
+    lo, hi = 0.95 * guess * MAD_NORMAL, 1.05 * guess * MAD_NORMAL
+    below = int(np.count_nonzero(a < lo))
+    window = a[(a >= lo) & (a <= hi)]
+    first, second = (n - 1) // 2, n // 2  # the middle order statistics (equal for odd n)
+    if not (below <= first and second < below + window.size):
+        return mad_scale(residuals)
+    part = np.partition(window, (first - below, second - below))
+    median = 0.5 * (part[first - below] + part[second - below])
+    return float(median / MAD_NORMAL)
+
+
 def weighted_least_squares(
     response: np.ndarray,
     design: np.ndarray,
@@ -367,9 +388,10 @@ def irls_rows(
     converged = False
     weights = np.ones(n)
     n_iter = 0
+    scale = None
     for step in range(1, max_iter + 1):
         n_iter = step
-        scale = mad_scale(resid)
+        scale = _mad_near(resid, scale)
         if not scale > 0:
             weights = np.ones(n)
             normal = NormalEquations(rows @ rows.T, rows)
@@ -394,7 +416,7 @@ def irls_rows(
     return IRLSResult(
         betas=betas,
         weights=weights,
-        scale=mad_scale(resid),
+        scale=_mad_near(resid, scale),
         xtwx_inv=None,
         n_iter=n_iter,
         converged=converged,
