@@ -43,6 +43,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from fstats.fit.components import VarianceComponent
+
 __all__ = [
     "BAND_EDGES_HZ",
     "MIN_BINS",
@@ -50,8 +52,6 @@ __all__ = [
     "band_couplings",
     "between_band_variance",
     "coupling_spread",
-    "coupling_covariance",
-    "combined_dof",
 ]
 
 #: Edges of the coupling bands, Hz (the last band runs to the Nyquist frequency):
@@ -99,10 +99,9 @@ class CouplingSpread:
     sensitivity: np.ndarray
     dof: float
 
-    @property
-    def covariance(self) -> np.ndarray:
-        """The added covariance ``tau2 · s s'``, shape (k, k)."""
-        return self.tau2 * np.outer(self.sensitivity, self.sensitivity)
+    def component(self, name: str) -> VarianceComponent:
+        """The variance component ``tau2 · s s'`` this spread adds."""
+        return VarianceComponent(name, self.sensitivity, self.tau2, self.dof)
 
 
 def band_couplings(
@@ -254,42 +253,3 @@ def coupling_spread(
             )
         )
     return tuple(out)
-
-
-def coupling_covariance(spreads: tuple[CouplingSpread, ...], k: int) -> np.ndarray:
-    """Sum of the spreads' added covariances, shape (k, k) (zeros without spreads)."""
-    total = np.zeros((k, k))
-    for spread in spreads:
-        total += spread.covariance
-    return total
-
-
-def combined_dof(
-    weights: np.ndarray,
-    main_variance: float,
-    main_dof: float,
-    spreads: tuple[CouplingSpread, ...],
-) -> float:
-    """Satterthwaite degrees of freedom of a contrast's main plus coupling variance.
-
-    ``df = (v0 + Σ v_j)² / (v0²/df0 + Σ v_j²/df_j)`` with ``v_j = τ_j² (c's_j)²``
-    (Satterthwaite 1946).
-
-    Parameters
-    ----------
-    weights : ndarray, shape (k,)
-        Contrast row c.
-    main_variance, main_dof : float
-        ``c' C c`` of the main covariance and its degrees of freedom.
-    spreads : tuple of CouplingSpread
-    """
-    c = np.asarray(weights, dtype=float)
-    parts = [(spread.tau2 * float(c @ spread.sensitivity) ** 2, spread.dof) for spread in spreads]
-    parts = [(v, d) for v, d in parts if v > 0]
-    if not parts:
-        return float(main_dof)
-    total = main_variance + sum(v for v, _ in parts)
-    denom = sum(v**2 / d for v, d in parts)
-    if np.isfinite(main_dof) and main_dof > 0:
-        denom += main_variance**2 / main_dof
-    return float(total**2 / denom) if denom > 0 else float(main_dof)

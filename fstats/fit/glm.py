@@ -17,7 +17,9 @@ import pandas as pd
 from fstats.design.matrix import DesignMatrix
 from fstats.errors import FitWarning, InputError, suggest
 from fstats.fit.autoregressive import default_max_ar_order
-from fstats.fit.coupling import CouplingSpread, combined_dof, coupling_covariance, coupling_spread
+from fstats.fit.block_spread import block_spread
+from fstats.fit.components import VarianceComponent, combined_dof, components_covariance
+from fstats.fit.coupling import coupling_spread
 from fstats.fit.diagnostics import acf, durbin_watson, ljung_box, r_squared, variance_share
 from fstats.fit.estimation import METHODS, ChannelEstimate, ChannelFitError, estimate_channel
 from fstats.fit.inference import TermTest, f_test, t_test
@@ -70,11 +72,14 @@ class ChannelFit:
     diagnostics : dict
         ``r2``, ``durbin_watson`` (before/after whitening), ``ljung_box_p``,
         ``acf_before``, ``acf_after`` (lags 0..n), ``acf_lags_s``, ``short_share``,
-        ``converged``, ``n_iter``, ``n_used``, ``downweighted_fraction`` and, with
-        short columns, ``short_coupling`` (band couplings, τ, Q per short column).
-    coupling : tuple of CouplingSpread
-        Frequency dependence of each short column's coupling; its covariance
-        ``τ² s s'`` is added to :attr:`cov` (empty: nothing added).
+        ``converged``, ``n_iter``, ``n_used``, ``downweighted_fraction``;
+        ``short_coupling`` (band couplings, τ, Q per short column) and
+        ``block_spread`` (block amplitudes, τ per condition) when computed.
+    components : tuple of VarianceComponent
+        Variance the residuals cannot show, added to :attr:`cov`: the frequency
+        dependence of the short-channel coupling (:mod:`fstats.fit.coupling`) and
+        the block-to-block variation of the response amplitude
+        (:mod:`fstats.fit.block_spread`).  Empty: nothing added.
     """
 
     channel: str
@@ -86,7 +91,7 @@ class ChannelFit:
     estimate: ChannelEstimate
     baseline_flow: float
     diagnostics: dict = field(default_factory=dict)
-    coupling: tuple[CouplingSpread, ...] = ()
+    components: tuple[VarianceComponent, ...] = ()
 
     betas = property(lambda self: self.estimate.betas, doc="Coefficients, shape (k,).")
     dof = property(lambda self: self.estimate.dof, doc="Model residual degrees of freedom.")
@@ -105,10 +110,10 @@ class ChannelFit:
 
     @property
     def cov(self) -> np.ndarray:
-        """Coefficient covariance, shape (k, k): the estimation's plus the coupling term."""
-        if not self.coupling:
+        """Coefficient covariance, shape (k, k): the estimation's plus the components."""
+        if not self.components:
             return self.estimate.cov
-        return self.estimate.cov + coupling_covariance(self.coupling, len(self.names))
+        return self.estimate.cov + components_covariance(self.components, len(self.names))
 
     @property
     def se(self) -> np.ndarray:
@@ -116,12 +121,12 @@ class ChannelFit:
         return np.sqrt(np.diag(self.cov))
 
     def contrast_dof(self, weights: np.ndarray) -> float:
-        """Degrees of freedom of a contrast row (Satterthwaite with the coupling term)."""
+        """Degrees of freedom of a contrast row (Satterthwaite with the components)."""
         w = np.asarray(weights, dtype=float)
         main = self.estimate.contrast_dof(w)
-        if not self.coupling:
+        if not self.components:
             return main
-        return combined_dof(w, float(w @ self.estimate.cov @ w), main, self.coupling)
+        return combined_dof(w, float(w @ self.estimate.cov @ w), main, self.components)
 
     @property
     def t(self) -> np.ndarray:
@@ -214,6 +219,12 @@ class SubjectGLM:
         and its between-band spread is added to the covariance of the task terms
         (:mod:`fstats.fit.coupling`; matters when the short channel follows the
         task); ``single``: the one fitted coefficient is trusted.  Not used by OLS.
+    block_variation : bool, default=True
+        Add the block-to-block variation of each condition's response amplitude
+        (a random effect over blocks, :mod:`fstats.fit.block_spread`) to the
+        covariance, so that intervals cover the response the subject gives on
+        average, not only in these blocks.  Needs at least 4 blocks; not used by
+        OLS or for FIR conditions.
     max_iter : int, default=10
         Largest number of AR re-estimation rounds.
     tol : float, default=1e-5
@@ -238,6 +249,7 @@ class SubjectGLM:
     covariance: str = "spectral"
     smoothing_hz: float = 0.005
     short_coupling: str = "banded"
+    block_variation: bool = True
     max_iter: int = 10
     tol: float = 1e-5
     tukey_c: float = TUKEY_C
@@ -408,9 +420,17 @@ class SubjectGLM:
         baseline = float(np.mean(x[valid][:, ~task] @ est.betas[~task])) if valid.any() else np.nan
         short = np.array([k == "short" for k in col_kinds])
         short_part = x[:, short] @ est.betas[short] if short.any() else None
-        spreads: tuple[CouplingSpread, ...] = ()
+        spreads = ()
         if short.any() and self.short_coupling == "banded" and self.method != "ols":
             spreads = coupling_spread(flow, x, list(np.flatnonzero(short)), est.weights, sfreq)
+        blocks = {}
+        if self.block_variation and self.method != "ols":
+            blocks = self._block_spreads(recording, design, x, col_names, flow, est, sfreq)
+        components = tuple(
+            s.component(f"short coupling: {col_names[s.column]}") for s in spreads
+        ) + tuple(
+            b.component(f"block amplitude: {cond}", len(col_names)) for cond, b in blocks.items()
+        )
         max_lag = int(min(round(2.0 * sfreq), max(1, valid.sum() // 4)))
         white = est.whitened_residuals
         diagnostics = {
@@ -439,6 +459,16 @@ class SubjectGLM:
                 }
                 for s in spreads
             }
+        if blocks:
+            diagnostics["block_spread"] = {
+                cond: {
+                    "column": col_names[b.column],
+                    "amplitudes": b.amplitudes.tolist(),
+                    "tau": float(np.sqrt(b.tau2)),
+                    "n_blocks": int(b.amplitudes.size),
+                }
+                for cond, b in blocks.items()
+            }
         conditions = {
             cond: tuple(c for c in cols if c in col_names)
             for cond, cols in design.conditions.items()
@@ -453,5 +483,35 @@ class SubjectGLM:
             estimate=est,
             baseline_flow=baseline,
             diagnostics=diagnostics,
-            coupling=spreads,
+            components=components,
         )
+
+    def _block_spreads(self, recording, design, x, col_names, flow, est, sfreq) -> dict:
+        """Between-block amplitude spread of every non-FIR task condition (by condition)."""
+        events = design.info.get("events") if isinstance(design.info, dict) else None
+        if events is None:
+            events = recording.events
+        if events is None or not hasattr(events, "select"):
+            return {}
+        out = {}
+        for cond, cols in design.conditions.items():
+            if cond in design.fir_times_s or not cols or cols[0] not in col_names:
+                continue
+            onsets = events.select(cond).onsets_s
+            if onsets.size == 0:
+                continue
+            spread = block_spread(
+                flow,
+                x,
+                col_names.index(cols[0]),
+                recording.times_s,
+                onsets,
+                est.ar_coefs,
+                est.weights,
+                sfreq,
+                smoothing_hz=self.smoothing_hz,
+                covariance=self.covariance,
+            )
+            if spread is not None:
+                out[cond] = spread
+        return out

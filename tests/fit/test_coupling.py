@@ -11,12 +11,8 @@ from statsmodels.stats.meta_analysis import combine_effects
 from fstats.design import build_design, load_design
 from fstats.errors import InputError
 from fstats.fit import SubjectGLM
-from fstats.fit.coupling import (
-    band_couplings,
-    between_band_variance,
-    combined_dof,
-    coupling_spread,
-)
+from fstats.fit.components import combined_dof
+from fstats.fit.coupling import band_couplings, between_band_variance, coupling_spread
 from fstats.simulate import SimulationSettings, simulate_recording
 
 DESIGN = Path(__file__).resolve().parents[2] / "designs" / "subtract_blocks.yaml"
@@ -130,8 +126,9 @@ def test_combined_dof_is_satterthwaite():
     c = np.array([1.0, 0.0])
     v1 = spread.tau2 * (c @ spread.sensitivity) ** 2
     expected = (0.04 + v1) ** 2 / (0.04**2 / 30.0 + v1**2 / spread.dof)
-    assert combined_dof(c, 0.04, 30.0, (spread,)) == pytest.approx(expected)
-    assert combined_dof(np.array([0.0, 1.0]), 0.04, 30.0, (spread,)) == 30.0
+    component = spread.component("short coupling")
+    assert combined_dof(c, 0.04, 30.0, (component,)) == pytest.approx(expected)
+    assert combined_dof(np.array([0.0, 1.0]), 0.04, 30.0, (component,)) == 30.0
 
 
 @pytest.fixture(scope="module")
@@ -151,16 +148,18 @@ def test_glm_adds_the_coupling_covariance(recording_and_design):
     rec, design = recording_and_design
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        banded = SubjectGLM(block_averages=False).fit(rec, design, channels=["frontal_a"])
-        single = SubjectGLM(block_averages=False, short_coupling="single").fit(
+        banded = SubjectGLM(block_averages=False, block_variation=False).fit(
             rec, design, channels=["frontal_a"]
         )
+        single = SubjectGLM(
+            block_averages=False, block_variation=False, short_coupling="single"
+        ).fit(rec, design, channels=["frontal_a"])
     b, s = banded.channel_fits["frontal_a"], single.channel_fits["frontal_a"]
     np.testing.assert_allclose(b.betas, s.betas)
     np.testing.assert_allclose(s.cov, s.estimate.cov)
-    (spread,) = b.coupling
+    (spread,) = b.components
     np.testing.assert_allclose(
-        b.cov - b.estimate.cov, spread.tau2 * np.outer(*[spread.sensitivity] * 2)
+        b.cov - b.estimate.cov, spread.tau2 * np.outer(spread.loading, spread.loading)
     )
     j = b.names.index("subtract")
     assert b.se[j] >= s.se[j]

@@ -1,0 +1,218 @@
+"""Variation of the response amplitude from block to block, as a variance component.
+
+A condition's regressor assumes the same response to every block.  Real responses
+vary from block to block (attention, arousal, fatigue), and a recording's estimate
+is the mean of its blocks' amplitudes.  That variation sits exactly at the
+frequencies of the task regressor, which the fit removes from the residuals, so the
+spectral sandwich sees little of it; the interval then covers the recording's own
+mean response but not the response the same subject would give in another run.
+
+This module estimates the between-block variance as a random effect:
+
+1. the condition's column is split into one piece per block (from each onset to
+   the next onset of the same condition; the pieces add up to the column);
+2. the split design (pieces + every other column) is fitted with the main fit's AR
+   filter and robust weights, giving block amplitudes ``b`` and their covariance
+   ``C`` (spectral sandwich, as the main fit);
+3. with ``κ`` each block's share of the main estimate (``c̃' W P̃_j / c̃' W c̃``)
+   and the centring ``M = I - 1 κ'``, the method-of-moments estimate
+   ``τ² = max(0, (‖M b‖² - tr(M C M')) / tr(M M'))`` is the amplitude variance
+   beyond noise (the random-effects moment estimator of DerSimonian & Laird 1986,
+   with a full noise covariance because 1/f noise correlates neighbouring blocks);
+4. the main estimate ``Σ κ_j b_j`` then carries ``τ² Σ κ_j²`` more variance, with
+   ``N - 1`` degrees of freedom for N blocks.
+
+Under the null (no response) the amplitudes vary only by noise and τ² is mostly 0.
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import fft
+
+from fstats.fit.autoregressive import whiten, whitened_rows
+from fstats.fit.components import VarianceComponent
+from fstats.fit.covariance import spectral_sandwich
+from fstats.fit.ols import design_rank
+from fstats.fit.robust import weighted_least_squares
+
+__all__ = ["MIN_BLOCKS", "BlockSpread", "block_pieces", "between_block_variance", "block_spread"]
+
+logger = logging.getLogger(__name__)
+
+#: Fewest blocks of a condition for a between-block variance.
+MIN_BLOCKS: int = 4
+
+
+@dataclass(frozen=True, eq=False)
+class BlockSpread:
+    """Block amplitudes of one condition's column and their between-block variance.
+
+    Parameters
+    ----------
+    column : int
+        Index of the condition's column in the fitted design.
+    amplitudes : ndarray, shape (N,)
+        Amplitude of each block (flow unit per regressor unit).
+    shares : ndarray, shape (N,)
+        κ: each block's share of the main estimate (sums to 1).
+    tau2 : float
+        Between-block variance of the amplitude, (flow unit per regressor unit)².
+    dof : float
+        N - 1.
+    """
+
+    column: int
+    amplitudes: np.ndarray
+    shares: np.ndarray
+    tau2: float
+    dof: float
+
+    def component(self, name: str, k: int) -> VarianceComponent:
+        """The variance component ``τ² Σκ²`` on this column (``k`` columns in all)."""
+        loading = np.zeros(k)
+        loading[self.column] = np.sqrt(np.sum(self.shares**2))
+        return VarianceComponent(name, loading, self.tau2, self.dof)
+
+
+def block_pieces(column: np.ndarray, times_s: np.ndarray, onsets_s: np.ndarray) -> np.ndarray:
+    """Split a regressor into one piece per block.
+
+    Piece j is the column from onset j to onset j+1 (the first piece also takes
+    everything before the first onset, the last everything after the last onset), so
+    the pieces add up to the column exactly.
+
+    Parameters
+    ----------
+    column : ndarray, shape (n,)
+    times_s : ndarray, shape (n,)
+        Sample times, s.
+    onsets_s : ndarray, shape (N,)
+        Block onsets, s.
+
+    Returns
+    -------
+    ndarray, shape (n, N)
+    """
+    onsets = np.sort(np.asarray(onsets_s, dtype=float))
+    index = np.clip(np.searchsorted(onsets, times_s, side="right") - 1, 0, onsets.size - 1)
+    pieces = np.zeros((column.size, onsets.size))
+    pieces[np.arange(column.size), index] = column
+    return pieces
+
+
+def between_block_variance(
+    amplitudes: np.ndarray, covariance: np.ndarray, shares: np.ndarray
+) -> float:
+    """Moment estimate of the between-block variance of amplitudes with correlated noise.
+
+    ``τ² = max(0, (‖M b‖² - tr(M C M')) / tr(M M'))``, ``M = I - 1 κ'``: the spread of
+    the amplitudes around their κ-weighted mean beyond what their noise covariance
+    ``C`` explains (DerSimonian & Laird 1986 moment idea, full covariance).
+
+    Parameters
+    ----------
+    amplitudes : ndarray, shape (N,)
+    covariance : ndarray, shape (N, N)
+        Noise covariance of the amplitudes.
+    shares : ndarray, shape (N,)
+        κ, summing to 1.
+    """
+    b = np.asarray(amplitudes, dtype=float)
+    n = b.size
+    m = np.eye(n) - np.outer(np.ones(n), shares)
+    centred = m @ b
+    noise = float(np.trace(m @ covariance @ m.T))
+    return float(max(0.0, (centred @ centred - noise) / np.trace(m @ m.T)))
+
+
+def block_spread(
+    flow: np.ndarray,
+    design: np.ndarray,
+    column: int,
+    times_s: np.ndarray,
+    onsets_s: np.ndarray,
+    ar_coefs: np.ndarray,
+    weights: np.ndarray,
+    sfreq_hz: float,
+    *,
+    smoothing_hz: float = 0.005,
+    covariance: str = "spectral",
+    min_blocks: int = MIN_BLOCKS,
+) -> BlockSpread | None:
+    """Between-block variance of one condition's amplitude on one channel.
+
+    Parameters
+    ----------
+    flow : ndarray, shape (n,)
+        The channel's flow (NaN where missing).
+    design : ndarray, shape (n, k)
+        The fitted design.
+    column : int
+        The condition's (main) column.
+    times_s : ndarray, shape (n,)
+        Sample times, s.
+    onsets_s : ndarray, shape (N,)
+        The condition's onsets, s.
+    ar_coefs : ndarray, shape (p,)
+        The main fit's AR filter.
+    weights : ndarray
+        The main fit's robust weights, shape (n,) (NaN where a row was not used).
+    sfreq_hz : float
+        Sampling rate, Hz.
+    smoothing_hz : float
+        Periodogram smoothing of the spectral covariance, Hz.
+    covariance : {"spectral", "model"}
+        Noise covariance of the block amplitudes.
+    min_blocks : int
+        Fewer blocks (with a non-zero piece) give None.
+
+    Returns
+    -------
+    BlockSpread or None
+        None when there are too few blocks or the split design is rank deficient.
+    """
+    y = np.asarray(flow, dtype=float)
+    x = np.asarray(design, dtype=float)
+    onsets = np.unique(np.asarray(onsets_s, dtype=float))
+    pieces = block_pieces(x[:, column], times_s, onsets)
+    energy = np.sum(pieces**2, axis=0)
+    pieces = pieces[:, energy > 1e-9 * max(float(energy.max(initial=0.0)), 1e-300)]
+    n_blocks = pieces.shape[1]
+    if n_blocks < min_blocks:
+        return None
+    others = [i for i in range(x.shape[1]) if i != column]
+    split = np.column_stack([pieces, x[:, others]])
+    valid = np.isfinite(y) & np.isfinite(split).all(axis=1)
+    if design_rank(split[valid]) < split.shape[1]:
+        logger.info("no block spread for column %d: split design is rank deficient", column)
+        return None
+    coefs = np.asarray(ar_coefs, dtype=float)
+    y0 = np.where(valid, y, 0.0)
+    x0 = np.where(valid[:, None], split, 0.0)
+    kept = whitened_rows(valid, coefs.size)
+    w_kept = np.asarray(weights, dtype=float)[kept]
+    w = np.where(np.isfinite(w_kept), w_kept, 0.0)
+    yw = whiten(y0, coefs, valid)
+    xw = whiten(x0, coefs, valid)
+    betas, inv = weighted_least_squares(yw, xw, w)
+    resid = yw - xw @ betas
+    if covariance == "spectral":
+        bins = max(1, int(round(smoothing_hz * fft.next_fast_len(yw.size, real=True) / sfreq_hz)))
+        cov = spectral_sandwich(xw, resid, w, inv, smoothing_bins=bins, columns=n_blocks).cov
+    else:
+        dof = w.sum() - split.shape[1]
+        cov = (inv * np.sum(w * resid**2) / dof)[:n_blocks, :n_blocks]
+    whole = xw[:, :n_blocks].sum(axis=1)
+    shares = (w * whole) @ xw[:, :n_blocks] / float((w * whole) @ whole)
+    amplitudes = betas[:n_blocks]
+    return BlockSpread(
+        column=int(column),
+        amplitudes=amplitudes,
+        shares=shares,
+        tau2=between_block_variance(amplitudes, cov, shares),
+        dof=float(n_blocks - 1),
+    )
