@@ -8,6 +8,7 @@ from statsmodels.regression.linear_model import GLSAR, yule_walker
 from statsmodels.tsa.stattools import acovf
 
 from fstats.fit.autoregressive import (
+    Whitener,
     autocovariance,
     default_max_ar_order,
     fit_ar,
@@ -94,3 +95,26 @@ def test_default_max_order_is_four_seconds():
     """Source: recalled from memory - AR-IRLS practice uses about 4 x sampling rate."""
     assert default_max_ar_order(20.0) == 80
     assert default_max_ar_order(10.0) == 40
+
+
+@pytest.mark.parametrize("n", [600, 601])
+@pytest.mark.parametrize("order", [0, 1, 19])
+def test_whitener_gram_matches_whitened_rows(n, order):
+    """Source: Parseval's theorem - the Gram matrix of the circularly filtered series equals
+    the one-sided spectral sum; after removing the dropped samples (first p, after gaps, the
+    padding tail; n=601 pads to a fast FFT length) it equals W W' of the whitened rows."""
+    rng = np.random.default_rng(order + n)
+    rows = rng.standard_normal((4, n))
+    valid = np.ones(n, bool)
+    valid[[0, 1, 250, 251, 252, 400, n - 1]] = False
+    rows[:, ~valid] = np.nan
+    whitener = Whitener(rows, valid)
+    coefs = rng.uniform(-0.2, 0.2, order)
+    white = whitener.apply(coefs)
+    assert white.shape[1] == whitened_rows(valid, order).sum()
+    direct = whiten(rows.T, coefs, valid).T
+    assert_allclose(white, direct, rtol=1e-10, atol=1e-12)
+    gram = whitener.gram(coefs, max_dropped=1.0)
+    assert_allclose(gram, white @ white.T, rtol=1e-11, atol=1e-11)
+    if order > 5:  # too many samples to correct: the caller is told to whiten instead
+        assert whitener.gram(coefs, max_dropped=0.01) is None

@@ -6,7 +6,9 @@ import statsmodels.api as sm
 from numpy.testing import assert_allclose
 from statsmodels.regression.linear_model import GLSAR
 
+from fstats.fit.autoregressive import whiten
 from fstats.fit.estimation import ChannelFitError, estimate_channel
+from fstats.fit.robust import irls
 
 
 def _series(seed, n=3000, coefs=(0.5, 0.2)):
@@ -116,3 +118,42 @@ def test_singular_design_is_refused():
     x = np.column_stack([x, x[:, 0] - x[:, 1]])
     with pytest.raises(ChannelFitError, match="rank deficient"):
         estimate_channel(rng.standard_normal(300), x)
+
+
+def test_ar_with_gaps_is_ols_on_the_whitened_kept_rows():
+    """Source: numpy.linalg.lstsq on the Cochrane-Orcutt rows (common practice) - at
+    convergence the AR fit with missing samples is OLS of the whitened flow on the whitened
+    design over the rows whose p predecessors exist; the Gram-matrix shortcut reproduces it,
+    estimate and model covariance, to 1e-10."""
+    x, y = _series(11)
+    y = y.copy()
+    y[[0, 700, 701, 702, 1500, 2999]] = np.nan
+    ours = estimate_channel(
+        y, x, method="ar", ar_order=3, covariance="model", tol=1e-13, max_iter=200
+    )
+    valid = np.isfinite(y)
+    yw = whiten(np.where(valid, y, 0.0), ours.ar_coefs, valid)
+    xw = whiten(np.where(valid[:, None], x, 0.0), ours.ar_coefs, valid)
+    ref, *_ = np.linalg.lstsq(xw, yw, rcond=None)
+    assert_allclose(ours.betas, ref, rtol=1e-10)
+    resid = yw - xw @ ref
+    cov = np.linalg.inv(xw.T @ xw) * (resid @ resid) / (yw.size - x.shape[1])
+    assert_allclose(ours.cov, cov, rtol=1e-8)
+    assert_allclose(ours.whitened_residuals[np.isfinite(ours.whitened_residuals)], resid, atol=1e-9)
+
+
+def test_ar_irls_reaches_the_bisquare_fixed_point():
+    """Source: statsmodels RLM-equivalent IRLS (fstats.fit.robust.irls, checked against RLM)
+    - at convergence the AR-IRLS estimate is the Tukey-bisquare M-estimate of the whitened
+    regression: restarting full IRLS from it on the same whitened rows leaves it in place."""
+    x, y = _series(12)
+    y = y.copy()
+    y[np.random.default_rng(13).choice(3000, 30, replace=False)] += 25.0
+    ours = estimate_channel(y, x, max_ar_order=6, covariance="model", tol=1e-12, max_iter=60)
+    assert ours.converged
+    valid = np.ones(y.size, bool)
+    yw = whiten(y, ours.ar_coefs, valid)
+    xw = whiten(x, ours.ar_coefs, valid)
+    ref = irls(yw, xw, betas=ours.betas, tol=1e-13, max_iter=200)
+    assert_allclose(ours.betas, ref.betas, rtol=1e-8)
+    assert_allclose(ours.weights[np.isfinite(ours.weights)], ref.weights, atol=1e-8)
