@@ -34,6 +34,7 @@ from fstats.flow.solver import (
     _buf,
     _grid_start,
     _lm,
+    _ModelTable,
     _Workspace,
     decay_product_cm2,
 )
@@ -45,6 +46,10 @@ logger = logging.getLogger(__name__)
 #: How lags are weighted: equally, or by the expected g2 noise (see :mod:`fstats.flow.noise`).
 #: An explicit array of standard deviations may be passed instead.
 WEIGHTINGS: tuple[str, ...] = ("uniform", "noise-model")
+
+# a chunk's model table spans the 1st-99th percentiles of its starting guesses ± this
+# (log BFi): the start grid reaches 0.6 beyond them, the iteration rarely further
+_TABLE_REACH = 1.0
 
 
 @dataclass(frozen=True, eq=False)
@@ -289,6 +294,7 @@ def fit_g2(
     noise_model = sigma is None and weighting == "noise-model"
     x_e = decay_product_cm2(np.exp(-1.0), distinct, observable)[group_all] if noise_model else None
     ws = _Workspace(min(chunk_size, n_curves), n_lags)
+    tables: dict = {}  # per geometry id: model tables shared by its chunks
     for start in range(0, n_curves, chunk_size):
         sl = slice(start, min(start + chunk_size, n_curves))
         chunk_flags = _fit_chunk(
@@ -313,6 +319,7 @@ def fit_g2(
             ftol=ftol,
             out={k: v[sl] for k, v in out.items()},
             ws=ws,
+            tables=tables,
         )
         for reason, where in chunk_flags.items():
             flags[reason][sl] = where
@@ -387,6 +394,7 @@ def _fit_chunk(
     ftol,
     out,
     ws=None,
+    tables=None,
 ):
     """Screen and fit one chunk of curves, writing into the views in ``out``."""
     n_chunk, n_lags = y_all.shape
@@ -459,6 +467,15 @@ def _fit_chunk(
     wy = np.multiply(w, ym1, out=_buf(ws, "wy", n_ok, n_lags))
 
     fixed = None if fit_beta else b_start
+    table = None
+    if tables is not None and np.all(group == group[0]):  # one geometry: tabulate its model
+        lo, hi = np.percentile(u0, [1.0, 99.0]) + np.array([-_TABLE_REACH, _TABLE_REACH])
+        table = tables.get(group[0])
+        if table is None or not table.covers(lo, hi):
+            if table is not None and max(hi, table.hi) - min(lo, table.lo) < 6.0:
+                lo, hi = min(lo, table.lo), max(hi, table.hi)
+            table = _ModelTable({k: v[:1] for k, v in geom.items()}, lags, observable, lo, hi)
+            tables[group[0]] = table
     u_start, curv0, model, n_keep, slowest = _grid_start(
         wy, w, lags, geom, observable, u0, fixed, group, ws
     )
@@ -467,7 +484,7 @@ def _fit_chunk(
     u, b, n_iter, converged, resid = _lm(
         ym1[:, cut], w[:, cut], lags[cut], geom, observable, u_start, b_start, fit_beta,
         max_iter, xtol, ftol, model=(model[0][:, cut], model[1][:, cut]), curv0=curv0,
-        wy=wy[:, cut], ws=ws,
+        wy=wy[:, cut], ws=ws, table=table,
     )  # fmt: skip
     if n_keep < n_lags:
         res_full = _buf(ws, "_tail", n_ok, n_lags)  # the solver's scratch is free now
