@@ -11,9 +11,10 @@ This module estimates the between-block variance as a random effect:
 
 1. the condition's column is split into one piece per block (from each onset to
    the next onset of the same condition; the pieces add up to the column);
-2. the split design (pieces + every other column) is fitted with the main fit's AR
-   filter and robust weights, giving block amplitudes ``b`` and their covariance
-   ``C`` (spectral sandwich, as the main fit);
+2. the pieces are whitened with the main fit's AR filter and the main fit's
+   whitened residuals are regressed on them with its robust weights, giving each
+   block's deviation from the main estimate (amplitudes ``b``) and their noise
+   covariance ``C`` (spectral sandwich, as the main fit);
 3. with ``κ`` each block's share of the main estimate (``c̃' W P̃_j / c̃' W c̃``)
    and the centring ``M = I - 1 κ'``, the method-of-moments estimate
    ``τ² = max(0, (‖M b‖² - tr(M C M')) / tr(M M'))`` is the amplitude variance
@@ -137,6 +138,8 @@ def block_spread(
     onsets_s: np.ndarray,
     ar_coefs: np.ndarray,
     weights: np.ndarray,
+    whitened_residuals: np.ndarray,
+    estimate: float,
     sfreq_hz: float,
     *,
     smoothing_hz: float = 0.005,
@@ -144,6 +147,12 @@ def block_spread(
     min_blocks: int = MIN_BLOCKS,
 ) -> BlockSpread | None:
     """Between-block variance of one condition's amplitude on one channel.
+
+    The block pieces are whitened with the main fit's AR filter and the main fit's
+    whitened residuals are regressed on them (robust weights kept): the coefficients
+    are the blocks' deviations from the main estimate, and the spectral sandwich of
+    that regression gives their noise covariance.  (The other design columns are not
+    refitted; the main residuals are already free of them.)
 
     Parameters
     ----------
@@ -159,8 +168,12 @@ def block_spread(
         The condition's onsets, s.
     ar_coefs : ndarray, shape (p,)
         The main fit's AR filter.
-    weights : ndarray
-        The main fit's robust weights, shape (n,) (NaN where a row was not used).
+    weights : ndarray, shape (n,)
+        The main fit's robust weights (NaN where a row was not used).
+    whitened_residuals : ndarray, shape (n,)
+        The main fit's whitened residuals (NaN on rows dropped by whitening).
+    estimate : float
+        The main fit's coefficient of ``column``.
     sfreq_hz : float
         Sampling rate, Hz.
     smoothing_hz : float
@@ -173,7 +186,7 @@ def block_spread(
     Returns
     -------
     BlockSpread or None
-        None when there are too few blocks or the split design is rank deficient.
+        None when there are too few blocks or the pieces are rank deficient.
     """
     y = np.asarray(flow, dtype=float)
     x = np.asarray(design, dtype=float)
@@ -184,35 +197,31 @@ def block_spread(
     n_blocks = pieces.shape[1]
     if n_blocks < min_blocks:
         return None
-    others = [i for i in range(x.shape[1]) if i != column]
-    split = np.column_stack([pieces, x[:, others]])
-    valid = np.isfinite(y) & np.isfinite(split).all(axis=1)
-    if design_rank(split[valid]) < split.shape[1]:
-        logger.info("no block spread for column %d: split design is rank deficient", column)
-        return None
     coefs = np.asarray(ar_coefs, dtype=float)
-    y0 = np.where(valid, y, 0.0)
-    x0 = np.where(valid[:, None], split, 0.0)
+    valid = np.isfinite(y) & np.isfinite(x).all(axis=1)
     kept = whitened_rows(valid, coefs.size)
+    resid_main = np.asarray(whitened_residuals, dtype=float)[kept]
     w_kept = np.asarray(weights, dtype=float)[kept]
-    w = np.where(np.isfinite(w_kept), w_kept, 0.0)
-    yw = whiten(y0, coefs, valid)
-    xw = whiten(x0, coefs, valid)
-    betas, inv = weighted_least_squares(yw, xw, w)
-    resid = yw - xw @ betas
+    use = np.isfinite(resid_main) & np.isfinite(w_kept) & (w_kept > 0)
+    xw = whiten(np.where(valid[:, None], pieces, 0.0), coefs, valid)[use]
+    e, w = resid_main[use], w_kept[use]
+    if xw.shape[0] <= n_blocks or design_rank(xw) < n_blocks:
+        logger.info("no block spread for column %d: block pieces are rank deficient", column)
+        return None
+    deviations, inv = weighted_least_squares(e, xw, w)
+    resid = e - xw @ deviations
     if covariance == "spectral":
-        bins = max(1, int(round(smoothing_hz * fft.next_fast_len(yw.size, real=True) / sfreq_hz)))
-        cov = spectral_sandwich(xw, resid, w, inv, smoothing_bins=bins, columns=n_blocks).cov
+        bins = max(1, int(round(smoothing_hz * fft.next_fast_len(e.size, real=True) / sfreq_hz)))
+        cov = spectral_sandwich(xw, resid, w, inv, smoothing_bins=bins).cov
     else:
-        dof = w.sum() - split.shape[1]
-        cov = (inv * np.sum(w * resid**2) / dof)[:n_blocks, :n_blocks]
-    whole = xw[:, :n_blocks].sum(axis=1)
-    shares = (w * whole) @ xw[:, :n_blocks] / float((w * whole) @ whole)
-    amplitudes = betas[:n_blocks]
+        dof = w.sum() - n_blocks
+        cov = inv * np.sum(w * resid**2) / dof
+    whole = xw.sum(axis=1)
+    shares = (w * whole) @ xw / float((w * whole) @ whole)
     return BlockSpread(
         column=int(column),
-        amplitudes=amplitudes,
+        amplitudes=float(estimate) + deviations,
         shares=shares,
-        tau2=between_block_variance(amplitudes, cov, shares),
+        tau2=between_block_variance(deviations, cov, shares),
         dof=float(n_blocks - 1),
     )

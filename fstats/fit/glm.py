@@ -508,6 +508,8 @@ class SubjectGLM:
                 onsets,
                 est.ar_coefs,
                 est.weights,
+                est.whitened_residuals,
+                float(est.betas[col_names.index(cols[0])]),
                 sfreq,
                 smoothing_hz=self.smoothing_hz,
                 covariance=self.covariance,

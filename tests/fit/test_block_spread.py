@@ -9,6 +9,7 @@ import statsmodels.api as sm
 
 from fstats.design import build_design, load_design
 from fstats.fit import SubjectGLM
+from fstats.fit.autoregressive import whiten, whitened_rows
 from fstats.fit.block_spread import between_block_variance, block_pieces, block_spread
 from fstats.simulate import SimulationSettings, simulate_recording
 
@@ -59,28 +60,52 @@ def test_between_block_variance_is_unbiased_with_correlated_noise():
     assert np.mean(null_hat) < 0.1
 
 
-def test_block_amplitudes_equal_statsmodels_ols_without_filter():
+def _main_fit(y, x, coefs):
+    """Whitened least-squares fit: (betas, whitened residuals on the full time base)."""
+    valid = np.isfinite(y)
+    kept = whitened_rows(valid, len(coefs))
+    yw, xw = whiten(y, np.asarray(coefs), valid), whiten(x, np.asarray(coefs), valid)
+    betas = np.linalg.lstsq(xw, yw, rcond=None)[0]
+    white = np.full(y.size, np.nan)
+    white[kept] = yw - xw @ betas
+    return betas, white
+
+
+def test_block_deviations_equal_statsmodels_ols_without_filter():
     """Source: statsmodels OLS - with no AR filter, unit weights and the model
-    covariance, the block amplitudes are the OLS coefficients of the split design."""
+    covariance, the block amplitudes are the main estimate plus the OLS coefficients
+    of the main residuals on the block pieces."""
     rng = np.random.default_rng(2)
     times, onsets, column = _blocks()
     x = np.column_stack([column, np.ones_like(times), np.cos(np.pi * times / times[-1])])
     gains = 1.0 + 0.3 * rng.standard_normal(onsets.size)
     pieces = block_pieces(column, times, onsets)
     y = pieces @ gains + 0.5 + rng.standard_normal(times.size)
+    main = sm.OLS(y, x).fit()
+    ones = np.ones_like(y)
     spread = block_spread(
-        y, x, 0, times, onsets, np.array([]), np.ones_like(y), FS, covariance="model"
+        y,
+        x,
+        0,
+        times,
+        onsets,
+        np.array([]),
+        ones,
+        main.resid,
+        main.params[0],
+        FS,
+        covariance="model",
     )
-    ref = sm.OLS(y, np.column_stack([pieces, x[:, 1:]])).fit()
-    np.testing.assert_allclose(spread.amplitudes, ref.params[: onsets.size], rtol=1e-8)
+    ref = sm.OLS(main.resid, pieces).fit()
+    np.testing.assert_allclose(spread.amplitudes, main.params[0] + ref.params, rtol=1e-8)
     assert spread.shares.sum() == pytest.approx(1.0)
     assert spread.dof == onsets.size - 1
 
 
 def test_block_spread_recovers_the_gain_variation():
     """Source: the simulation's known truth (common practice) - blocks with gains of sd
-    0.4 in AR(1) noise: the median estimated tau over 30 replicates is within 25 % of
-    0.4; with equal gains the median tau is below 0.15."""
+    0.4 in AR(1) noise, fitted with the true AR filter: the median estimated tau over
+    30 replicates is within 25 % of 0.4; with equal gains the median tau is below 0.15."""
     rng = np.random.default_rng(3)
     times, onsets, column = _blocks(n_blocks=12)
     x = np.column_stack([column, np.ones_like(times)])
@@ -96,11 +121,13 @@ def test_block_spread_recovers_the_gain_variation():
         return 0.3 * out
 
     taus, nulls = [], []
+    ones = np.ones(times.size)
     for _ in range(30):
         gains = 1.0 + 0.4 * rng.standard_normal(onsets.size)
         for store, g in ((taus, gains), (nulls, np.ones(onsets.size))):
             y = pieces @ g + noise()
-            s = block_spread(y, x, 0, times, onsets, np.array([phi]), np.ones_like(y), FS)
+            betas, white = _main_fit(y, x, [phi])
+            s = block_spread(y, x, 0, times, onsets, np.array([phi]), ones, white, betas[0], FS)
             store.append(np.sqrt(s.tau2))
     assert np.median(taus) == pytest.approx(0.4, rel=0.25)
     assert np.median(nulls) < 0.15
