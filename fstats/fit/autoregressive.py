@@ -34,6 +34,9 @@ __all__ = [
     "default_max_ar_order",
 ]
 
+#: Up to this many lags, the autocovariance of one series is summed directly.
+_DIRECT_MAX_LAG = 128
+
 #: Autocovariance normalisations accepted by :func:`autocovariance`.
 AR_METHODS: tuple[str, ...] = ("mle", "adjusted")
 
@@ -122,13 +125,21 @@ def autocovariance(
         mean = x.sum(axis=0) / np.maximum(n_valid, 1)
         x = x - mean if complete else np.where(valid, x - mean, 0.0)
     n = x.shape[0]
-    n_fft = _fft.next_fast_len(2 * n - 1, real=True)
-    spec = _fft.rfft(x, n=n_fft, axis=0)
-    sums = _fft.irfft(spec * np.conj(spec), n=n_fft, axis=0)[: max_lag + 1]
+    direct = one_d and max_lag <= _DIRECT_MAX_LAG
+    if direct:  # a few lags of one series: dot products beat two FFTs of length 2n
+        col = x[:, 0]
+        sums = np.array([[col[k:] @ col[: n - k]] for k in range(max_lag + 1)])
+    else:
+        n_fft = _fft.next_fast_len(2 * n - 1, real=True)
+        spec = _fft.rfft(x, n=n_fft, axis=0)
+        sums = _fft.irfft(spec * np.conj(spec), n=n_fft, axis=0)[: max_lag + 1]
     if method == "mle":
         denom = np.broadcast_to(n_valid.astype(float), sums.shape)
     elif complete:
         denom = (n - np.arange(max_lag + 1, dtype=float))[:, None] * np.ones(x.shape[1])
+    elif direct:
+        v = valid[:, 0].astype(float)
+        denom = np.array([[v[k:] @ v[: n - k]] for k in range(max_lag + 1)])
     else:
         v = valid.astype(float)
         vs = _fft.rfft(v, n=n_fft, axis=0)
@@ -165,18 +176,24 @@ def levinson_durbin(acov: np.ndarray, max_order: int) -> tuple[list[np.ndarray],
     coefs: list[np.ndarray] = [np.zeros(0)]
     var = np.full(max_order + 1, np.nan)
     var[0] = r[0]
-    a = np.zeros(0)
+    a = np.zeros(max_order)
     e = r[0]
+    stable = 0  # the last order whose innovation variance stayed positive
     for p in range(1, max_order + 1):
         if not e > 0:
-            coefs.append(a.copy())
+            coefs.append(a[:stable].copy())
             var[p] = var[p - 1]
             continue
-        k = (r[p] - a @ r[p - 1 : 0 : -1]) / e if p > 1 else r[1] / e
-        a = np.concatenate([a - k * a[::-1], [k]])
+        if p > 1:
+            k = (r[p] - a[: p - 1] @ r[p - 1 : 0 : -1]) / e
+            a[: p - 1] = a[: p - 1] - k * a[p - 2 :: -1]
+        else:
+            k = r[1] / e
+        a[p - 1] = k
         e = e * (1.0 - k * k)
-        coefs.append(a.copy())
+        coefs.append(a[:p].copy())
         var[p] = e
+        stable = p
     return coefs, var
 
 
