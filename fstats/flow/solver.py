@@ -60,7 +60,7 @@ def decay_product_cm2(level: float, geom: dict, observable: str) -> np.ndarray:
 
 
 class _Workspace:
-    """Named scratch arrays of up to (rows, cols) floats, reused from chunk to chunk.
+    """Named scratch arrays of floats, reused from chunk to chunk.
 
     Fresh arrays of a few hundred kB come from the operating system page by page (and
     go back when freed), which on this workload costs as much as the arithmetic; the
@@ -69,14 +69,13 @@ class _Workspace:
     time must have different names.  ``None`` in place of a workspace allocates afresh.
     """
 
-    def __init__(self, rows: int, cols: int):
-        self.size = rows * cols
+    def __init__(self):
         self._flat: dict[str, np.ndarray] = {}
 
     def take(self, name: str, n: int, m: int) -> np.ndarray:
         flat = self._flat.get(name)
-        if flat is None or flat.size < n * m:
-            flat = self._flat[name] = np.empty(max(self.size, n * m))
+        if flat is None or flat.size < n * m:  # grows to the largest request
+            flat = self._flat[name] = np.empty(n * m)
         return flat[: n * m].reshape(n, m)
 
 
@@ -230,6 +229,7 @@ class _ModelTable:
     """
 
     def __init__(self, geom, lags, observable, lo, hi):
+        self.n_lags = lags.size  # the first lags only: those the iteration uses
         n_nodes = min(int(np.ceil((hi - lo) / _TABLE_STEP)) + 1, _TABLE_MAX_NODES)
         self.lo = float(lo)
         self.n_nodes = n_nodes
@@ -245,14 +245,14 @@ class _ModelTable:
                     full[start : start + block] = value
         self._cols: dict[int, tuple] = {}
 
-    def covers(self, lo, hi):
-        return lo >= self.lo and hi <= self.hi
+    def covers(self, lo, hi, n_lags):
+        return lo >= self.lo and hi <= self.hi and n_lags <= self.n_lags
 
     def columns(self, m):
         """The tables for the first ``m`` lags, C-contiguous (gathers from them are fast)."""
+        if m == self.n_lags:
+            return self._full
         if m not in self._cols:
-            if len(self._cols) > 3:
-                self._cols.clear()
             self._cols[m] = tuple(np.ascontiguousarray(full[:, :m]) for full in self._full)
         return self._cols[m]
 
