@@ -507,8 +507,11 @@ def _fit_chunk(
     n_par = 2 if fit_beta else 1
     chi = np.einsum("ij,ij->i", resid, resid)
     raw = _buf(ws, "_q", n_ok, n_lags)  # unweighted residual on the lags used
-    raw.fill(0.0)
-    np.divide(resid, w, out=raw, where=w > 0)
+    if full and w.min() > 0.0:
+        np.divide(resid, w, out=raw)
+    else:
+        raw.fill(0.0)
+        np.divide(resid, w, out=raw, where=w > 0)
     diff = np.subtract(resid[:, 1:], resid[:, :-1], out=_buf(ws, "_k", n_ok, n_lags - 1))
     if not full:
         diff[~(mask[:, 1:] & mask[:, :-1])] = 0.0

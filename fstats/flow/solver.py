@@ -357,8 +357,6 @@ def _grid_start(wy, w, lags, geom, observable, u_guess, fixed, group, ws=None):
     n, m = w.shape
     g1sq = _buf(ws, "g_grid", n, m)
     dlog = _buf(ws, "dlog_grid", n, m)
-    ww = np.multiply(w, w, out=_buf(ws, "_q", n, m))
-    wwy = np.multiply(w, wy, out=_buf(ws, "_k", n, m))
     syy = np.einsum("ij,ij->i", wy, wy)
     groups = np.unique(group)
     for g in groups:
@@ -372,8 +370,20 @@ def _grid_start(wy, w, lags, geom, observable, u_guess, fixed, group, ws=None):
         geom_g = {k: v[first] for k, v in geom.items()}  # (1, 1): one geometry
         with np.errstate(over="ignore", invalid="ignore", under="ignore"):
             table_g, slope_g, _ = _log_model(grid[:, None], lags, geom_g, observable)
-        cross = _products(wwy[rows], table_g)  # Σ w² (y - 1) g1²  (n_rows, n_grid)
-        power = _products(ww[rows], table_g * table_g)  # Σ w² g1⁴
+        # lags where even the slowest grid flow leaves a weighted model below 1e-6 (of a
+        # standard deviation) carry no information on BFi for these curves
+        significant = table_g[0] * (BETA_MAX * w_max) > 1e-6
+        n_sig = int(np.flatnonzero(significant).max(initial=0)) + 1
+        n_needed = max(n_needed, n_sig)
+        # products on those lags only: the others add below 1e-6 to any grid χ² difference
+        sig = slice(0, max(n_sig, 3))
+        table_s = table_g[:, sig]
+        w_s = w[rows, sig]
+        shape = w_s.shape
+        ww = np.multiply(w_s, w_s, out=_buf(ws, "_q", *shape))
+        wwy = np.multiply(w_s, wy[rows, sig], out=_buf(ws, "_k", *shape))
+        cross = _products(wwy, table_s)  # Σ w² (y - 1) g1²  (n_rows, n_grid)
+        power = _products(ww, table_s * table_s)  # Σ w² g1⁴
         if fixed is None:
             with np.errstate(divide="ignore", invalid="ignore"):
                 beta = np.clip(cross / power, _BETA_MIN, BETA_MAX)
@@ -386,11 +396,6 @@ def _grid_start(wy, w, lags, geom, observable, u_guess, fixed, group, ws=None):
         j = np.clip(best, 1, n_grid - 2)
         r = np.arange(best.size)
         c_m, c_0, c_p = chi[r, j - 1], chi[r, j], chi[r, j + 1]
-        # lags where even the slowest grid flow leaves a weighted model below 1e-6 (of a
-        # standard deviation) carry no information on BFi for these curves
-        significant = table_g[0] * (BETA_MAX * w_max) > 1e-6
-        n_needed = max(n_needed, int(np.flatnonzero(significant).max(initial=0)) + 1)
-        n_needed = min(-(-n_needed // 8) * 8, m)  # whole multiples of 8: few distinct widths
         slowest[rows] = grid[0]
         # the iteration starts on the best grid point, where the model is already known,
         # with the parabola's curvature (½ d²χ²/du²) for its first Newton step
@@ -402,6 +407,7 @@ def _grid_start(wy, w, lags, geom, observable, u_guess, fixed, group, ws=None):
         else:
             g1sq[rows] = table_g[best]
             dlog[rows] = slope_g[best]
+    n_needed = min(-(-n_needed // 8) * 8, m)  # whole multiples of 8: few distinct widths
     return start, half_curv, (g1sq, dlog), n_needed, slowest
 
 
@@ -429,7 +435,8 @@ def _lm(*args, **kwargs):
 
 
 def _other(tag):
-    return "1" if tag == "0" else "0"
+    """The other workspace set of a pair: "0" <-> "1", "c0" <-> "c1"."""
+    return tag[:-1] + ("1" if tag[-1] == "0" else "0")
 
 
 def _lm_core(
@@ -466,7 +473,7 @@ def _lm_core(
     fixed = None if fit_beta else beta.copy()
     out_u = u.copy()
     out_beta = beta.copy()
-    out_resid = _buf(ws, "out_resid", n, m)
+    out_resid = None  # becomes the residual array of the first compaction (or the last)
     n_iter = np.zeros(n, dtype=int)
     converged = np.zeros(n, dtype=bool)
     ids = np.arange(n)  # working rows: curves still iterating, and finished ones standing still
@@ -586,8 +593,8 @@ def _lm_core(
             if 0 < n_live and 4 * n_live <= 3 * n_act:
                 keep = alive
                 # finished rows (their residuals stand still) leave the working arrays
-                if n_act == n:  # rows still in place: a plain copy beats a gather
-                    np.copyto(out_resid, resid)
+                if out_resid is None:  # rows still in place: this array is the result's
+                    out_resid, rtag = resid, "c" + rtag  # later residuals go elsewhere
                 else:
                     out_resid[ids[~keep]] = resid[~keep]
                 ids, u, b, chi, grad = ids[keep], u[keep], b[keep], chi[keep], grad[keep]
@@ -606,8 +613,8 @@ def _lm_core(
                 alive = alive[keep]
     last = ids[alive]
     out_u[last], out_beta[last] = u[alive], b[alive]
-    if ids.size == n:
-        np.copyto(out_resid, resid)
+    if out_resid is None:
+        out_resid = resid
     else:
         out_resid[ids] = resid
     return out_u, out_beta, n_iter, converged, out_resid
