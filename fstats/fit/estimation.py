@@ -278,7 +278,7 @@ def estimate_channel(
         )
         bread = xtwx_inv
         if method == "ar-irls":
-            bread = _bisquare_bread(xw, ew, scale_w, tukey_c, xtwx_inv)
+            bread = _bisquare_bread(xw, ew, scale_w, tukey_c, xtwx_inv, normal.norms)
         spectral = spectral_sandwich(
             xw.T,
             ew,
@@ -313,15 +313,14 @@ def estimate_channel(
     )
 
 
-def _bisquare_bread(xw, ew, scale, c, fallback):
+def _bisquare_bread(xw, ew, scale, c, fallback, norms):
     """``(X̃' diag(ψ'(u)) X̃)^-1`` with ``u = ẽ / s`` and the bisquare ``ψ'`` (Huber sandwich).
 
-    ``xw`` holds the whitened regressors as rows, shape (k, n).
+    ``xw`` holds the whitened regressors as rows, shape (k, n); ``norms`` (k,) scales
+    the columns for the inversion (e.g. the square root of the diagonal of ``X̃'WX̃``).
     """
     u = ew / scale / c
     dpsi = np.where(np.abs(u) <= 1.0, (1.0 - u * u) * (1.0 - 5.0 * u * u), 0.0)
-    norms = np.sqrt(np.einsum("ij,ij->i", xw, xw))
-    norms[norms == 0] = 1.0
     gram = (xw * dpsi) @ xw.T / np.outer(norms, norms)  # ψ' < 0 for 0.45 c < |u| < c: no syrk
     try:
         inv = np.linalg.inv(gram)
