@@ -420,12 +420,14 @@ class SubjectGLM:
         baseline = float(np.mean(x[valid][:, ~task] @ est.betas[~task])) if valid.any() else np.nan
         short = np.array([k == "short" for k in col_kinds])
         short_part = x[:, short] @ est.betas[short] if short.any() else None
-        spreads = ()
-        if short.any() and self.short_coupling == "banded" and self.method != "ols":
-            spreads = coupling_spread(flow, x, list(np.flatnonzero(short)), est.weights, sfreq)
-        blocks = {}
-        if self.block_variation and self.method != "ols":
-            blocks = self._block_spreads(recording, design, x, col_names, flow, est, sfreq)
+        spreads, blocks = (), {}
+        try:
+            if short.any() and self.short_coupling == "banded" and self.method != "ols":
+                spreads = coupling_spread(flow, x, list(np.flatnonzero(short)), est.weights, sfreq)
+            if self.block_variation and self.method != "ols":
+                blocks = self._block_spreads(recording, design, x, col_names, flow, est, sfreq)
+        except (np.linalg.LinAlgError, ValueError) as exc:
+            raise ChannelFitError(f"variance components could not be estimated ({exc})") from exc
         components = tuple(
             s.component(f"short coupling: {col_names[s.column]}") for s in spreads
         ) + tuple(
