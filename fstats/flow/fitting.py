@@ -11,10 +11,15 @@ All curves of a recording are fitted together, as arrays, in three steps:
 3. a damped Newton iteration in log BFi on the β-profiled χ² (variable projection,
    Golub & Pereyra 1973, with Kaufman's Jacobian): analytic gradient, curvature from
    the grid, then from the secant of the gradient; Levenberg–Marquardt style damping
-   rejects steps that raise χ² (Marquardt 1963).
+   rejects steps that raise χ² (Marquardt 1963).  The model comes from a table per
+   geometry (g1², its log-slope and log-curvature on nodes 0.002 apart in log BFi,
+   expanded to second order: relative error < 1e-9), and small final steps are judged
+   on the same expansion about the current point, so a typical curve costs one table
+   look-up and one expansion instead of two exact evaluations (two exponentials per lag).
 
-Curves that have converged leave the working set, and curves are processed in chunks,
-so the memory held is a few (chunk_size, n_lags) arrays whatever the recording length.
+Curves that have converged leave the working set, and curves are processed in chunks
+whose per-lag arrays are reused (:class:`fstats.flow.solver._Workspace`), so the memory
+held is a few dozen (chunk_size, n_lags) arrays whatever the recording length.
 Fitting log BFi keeps BFi positive without bounds; β is kept in (0, BETA_MAX].
 """
 

@@ -1,11 +1,18 @@
 """The batched least-squares solver behind :func:`fstats.flow.fit_g2`.
 
-For many g2 curves at once, as arrays: the semi-infinite model g1² and its derivative in
-log BFi, the β-profiled χ² (variable projection, Golub & Pereyra 1973, SIAM J Numer
-Anal 10:413, with Kaufman's Jacobian), a shared grid over log BFi for starting values,
-and a damped Newton iteration (curvature from the grid, then from the secant of the
-exact gradient; Levenberg–Marquardt style step rejection, Marquardt 1963, J SIAM
-11:431).  Pure functions of arrays; the caller screens curves and builds the weights.
+For many g2 curves at once, as arrays: the semi-infinite model g1² with the first and
+second derivatives of log g1² in log BFi, the β-profiled χ² (variable projection, Golub
+& Pereyra 1973, SIAM J Numer Anal 10:413, with Kaufman's Jacobian), a shared grid over
+log BFi for starting values, and a damped Newton iteration (curvature from the grid, then
+from the secant of the exact gradient; Levenberg–Marquardt style step rejection,
+Marquardt 1963, J SIAM 11:431).
+
+Speed: the model of a geometry is tabulated once on a fine log-BFi grid
+(:class:`_ModelTable`) and read with a second-order expansion; small trial steps are
+judged on the expansion about the current point (:func:`_taylor_trial`); per-lag arrays
+live in reused scratch space (:class:`_Workspace`).  Pure functions of arrays (the
+scratch space and tables are the caller's); the caller screens curves and builds the
+weights.
 """
 
 from __future__ import annotations
@@ -487,8 +494,7 @@ def _lm_core(
         exact = np.ones(n, dtype=bool)  # L'' known at u: Taylor trials allowed
     else:
         jb = np.multiply(model[0], w, out=_buf(ws, "jb0", n, m))
-        dlog = _buf(ws, "dlog0", n, m)
-        dlog[...] = model[1]
+        dlog = model[1]  # the caller's array (no copy): rows accepted later are written in
         b, resid, chi, power = _profile(jb, fixed, wy, _buf(ws, "r0", n, m))
         jd = np.multiply(jb, dlog, out=_buf(ws, "jd0", n, m))
         lpp = _buf(ws, "lpp0", n, m)
