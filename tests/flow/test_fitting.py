@@ -60,6 +60,21 @@ def test_noise_free_curves_recover_bfi_and_beta(observable):
     assert np.all(result.status == "ok")
 
 
+@pytest.mark.parametrize("observable", ["fluence", "flux"])
+def test_noise_free_single_channel_recovers_bfi_through_the_model_table(observable):
+    """Source: REFERENCE-CHECKS 5.3 - noise-free g2 of one channel (one geometry: the
+    fitter reads the model from its table) gives back beta and alpha*Db; chunks of 64
+    curves make later chunks reuse and extend the table."""
+    rng = np.random.default_rng(21)
+    bfi = np.sort(rng.uniform(0.4e-8, 4e-8, 300))  # a slow drift across chunks
+    beta = rng.uniform(0.3, 0.6, 300)
+    g2 = g2_from_g1(g1_semi_infinite(LAGS, bfi, separation_cm=2.0, observable=observable), beta)
+    result = fit_g2(g2, LAGS, separation_cm=2.0, observable=observable, chunk_size=64)
+    assert result.fitted.all() and result.converged.all()
+    assert_allclose(result.bfi_cm2_s, bfi, rtol=1e-6)
+    assert_allclose(result.beta, beta, rtol=1e-6)
+
+
 def test_fixed_beta_recovers_bfi():
     """Source: REFERENCE-CHECKS 5.3 - with beta fixed at its true value BFi is recovered."""
     bfi = np.array([0.8e-8, 1.6e-8, 3.2e-8])

@@ -123,20 +123,21 @@ def test_taylor_step_matches_an_exact_evaluation():
     assert np.max(np.abs(r_t - r_e)) < 1e-6  # weighted residuals (noise sd = 1)
 
 
-def test_model_table_matches_exact_evaluation_inside_and_outside():
+@pytest.mark.parametrize("observable", ["fluence", "flux"])
+def test_model_table_matches_exact_evaluation_inside_and_outside(observable):
     """Source: common practice - the tabulated model (nearest node + second-order expansion)
     agrees with an exact evaluation of the forward model; points outside the table are
     evaluated exactly."""
     rng = np.random.default_rng(8)
     lags = np.geomspace(1e-6, 3e-3, 64)
     geom, u, w, wy = _noisy_rows(rng, 60, lags, 3.0)
-    table = _ModelTable({k: v[:1] for k, v in geom.items()}, lags, "fluence",
+    table = _ModelTable({k: v[:1] for k, v in geom.items()}, lags, observable,
                         np.log(0.75e-8), np.log(1.3e-8))  # fmt: skip
     inside = (u >= table.lo) & (u <= table.hi)
     assert inside.any() and not inside.all()
     with np.errstate(all="ignore"):
-        got = _model_trial(u, None, wy, w, lags, geom, "fluence", None, "", "", table)
-        exact = _exact_trial(u, None, wy, w, lags, geom, "fluence", None, "", "")
+        got = _model_trial(u, None, wy, w, lags, geom, observable, None, "", "", table)
+        exact = _exact_trial(u, None, wy, w, lags, geom, observable, None, "", "")
     assert_allclose(got[0], exact[0], rtol=1e-9)  # beta
     assert_allclose(got[2], exact[2], rtol=1e-9)  # chi^2
     big = exact[4] > 1e-12 * w
