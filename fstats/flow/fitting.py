@@ -37,6 +37,7 @@ from fstats.flow.solver import (
     _GEOM_KEYS,
     BETA_MAX,
     _buf,
+    _geom_rows,
     _grid_start,
     _lm,
     _ModelTable,
@@ -412,8 +413,11 @@ def _fit_chunk(
     every = idx.size == n_chunk  # the usual case: no fancy-index copies
     n_ok = idx.size
     y = y_all if every else y_all[idx]  # read only
-    geom = {k: (v if every else v[idx])[:, None] for k, v in geom.items()}
     group = group if every else group[idx]
+    if np.all(group == group[0]):  # one geometry: arrays of one row, broadcast
+        geom = {k: v[:1, None] for k, v in geom.items()}
+    else:
+        geom = {k: (v if every else v[idx])[:, None] for k, v in geom.items()}
 
     # starting values
     first = np.argmax(in_range)
@@ -502,7 +506,7 @@ def _fit_chunk(
         slow = np.flatnonzero(u < slowest)  # ended slower than the grid: refit on all lags
         if slow.size:
             u_s, b_s, it_s, conv_s, r_s = _lm(
-                ym1[slow] + 1.0, w[slow], lags, {k: v[slow] for k, v in geom.items()},
+                ym1[slow] + 1.0, w[slow], lags, _geom_rows(geom, slow),
                 observable, u[slow], b[slow], fit_beta, max_iter, xtol, ftol,
             )  # fmt: skip
             u[slow], b[slow], resid[slow] = u_s, b_s, r_s

@@ -90,6 +90,19 @@ def _buf(ws, name, n, m):
     return np.empty((n, m)) if ws is None else ws.take(name, n, m)
 
 
+def _take_rows(a, rows, ws, name):
+    """``a[rows]`` (integer rows) into the workspace array ``name``."""
+    return np.take(a, rows, 0, _buf(ws, name, rows.size, a.shape[1]), "clip")
+
+
+def _geom_rows(geom, rows):
+    """The geometry of some curves: per-curve (n, 1) arrays are indexed, a geometry shared
+    by every curve (arrays of one row, broadcast) is kept as it is."""
+    if all(np.shape(v)[0] == 1 for v in geom.values()):
+        return geom
+    return {k: v[rows] for k, v in geom.items()}
+
+
 def _log_model(u, lags, geom, observable, curvature=False, ws=None, out=("g", "dlog", "lpp")):
     """g1², L' = d log g1²/du and, with ``curvature``, L'' = d² log g1²/du² per lag.
 
@@ -306,7 +319,7 @@ def _model_trial(u, beta_fixed, wy, w, lags, geom, observable, ws, tag, rtag, ta
     part = np.flatnonzero(~inside)
     ev = _exact_trial(
         u[part], None if beta_fixed is None else beta_fixed[part], wy[part], w[part], lags,
-        {k: v[part] for k, v in geom.items()}, observable, None, "", "",
+        _geom_rows(geom, part), observable, None, "", "",
     )  # fmt: skip
     res = list(_table_trial(np.where(inside, u, table.lo), table, beta_fixed, wy, w, ws, tag, rtag))
     res[0] = np.array(res[0])  # a copy: with β fixed this is the caller's array
@@ -562,7 +575,7 @@ def _lm_core(
                     u_t[sel], None if fixed is None else fixed[sel],
                     np.take(wy, sel, 0, _buf(ws, "wy_p", n_sel, m), "clip"),
                     np.take(w, sel, 0, _buf(ws, "w_p", n_sel, m), "clip"), lags,
-                    {k: v[sel] for k, v in geom.items()}, observable, ws, "_p", "_p", table,
+                    _geom_rows(geom, sel), observable, ws, "_p", "_p", table,
                 )  # fmt: skip
                 b_t = np.array(b_t)  # a copy: with β fixed this is the caller's array
                 b_t[sel], r_t[sel], chi_t[sel], pow_t[sel] = ev[0], ev[1], ev[2], ev[3]
@@ -597,26 +610,27 @@ def _lm_core(
             alive &= ~stop
             n_live = int(np.count_nonzero(alive))
             if 0 < n_live and 4 * n_live <= 3 * n_act:
-                keep = alive
+                keep = np.flatnonzero(alive)
                 # finished rows (their residuals stand still) leave the working arrays
                 if out_resid is None:  # rows still in place: this array is the result's
                     out_resid, rtag = resid, "c" + rtag  # later residuals go elsewhere
                 else:
-                    out_resid[ids[~keep]] = resid[~keep]
+                    gone = np.flatnonzero(~alive)
+                    out_resid[ids[gone]] = resid[gone]
                 ids, u, b, chi, grad = ids[keep], u[keep], b[keep], chi[keep], grad[keep]
                 prev_u, prev_grad, lam = prev_u[keep], prev_grad[keep], lam[keep]
                 first, exact, power = first[keep], exact[keep], power[keep]
-                geom = {k: v[keep] for k, v in geom.items()}
+                geom = _geom_rows(geom, keep)
                 fixed = None if fixed is None else fixed[keep]
                 rtag, mtag, ctag = _other(rtag), _other(mtag), _other(ctag)
-                resid = np.compress(keep, resid, 0, out=_buf(ws, "r" + rtag, n_live, m))
-                jb = np.compress(keep, jb, 0, out=_buf(ws, "jb" + mtag, n_live, m))
-                jd = np.compress(keep, jd, 0, out=_buf(ws, "jd" + mtag, n_live, m))
-                dlog = np.compress(keep, dlog, 0, out=_buf(ws, "dlog" + mtag, n_live, m))
-                lpp = np.compress(keep, lpp, 0, out=_buf(ws, "lpp" + mtag, n_live, m))
-                wy = np.compress(keep, wy, 0, out=_buf(ws, "wy_c" + ctag, n_live, m))
-                w = np.compress(keep, w, 0, out=_buf(ws, "w_c" + ctag, n_live, m))
-                alive = alive[keep]
+                resid = _take_rows(resid, keep, ws, "r" + rtag)
+                jb = _take_rows(jb, keep, ws, "jb" + mtag)
+                jd = _take_rows(jd, keep, ws, "jd" + mtag)
+                dlog = _take_rows(dlog, keep, ws, "dlog" + mtag)
+                lpp = _take_rows(lpp, keep, ws, "lpp" + mtag)
+                wy = _take_rows(wy, keep, ws, "wy_c" + ctag)
+                w = _take_rows(w, keep, ws, "w_c" + ctag)
+                alive = np.ones(n_live, dtype=bool)
     last = ids[alive]
     out_u[last], out_beta[last] = u[alive], b[alive]
     if out_resid is None:
