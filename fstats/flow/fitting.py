@@ -486,7 +486,9 @@ def _fit_chunk(
         table = tables.get(group[0])
         if table is None or not table.covers(lo, hi, n_keep):
             if table is not None and max(hi, table.hi) - min(lo, table.lo) < 6.0:
-                lo, hi = min(lo, table.lo), max(hi, table.hi)
+                # grow the old range, with room to spare on the side that fell short
+                lo = table.lo if lo >= table.lo else lo - 0.5
+                hi = table.hi if hi <= table.hi else hi + 0.5
             geom_1 = {k: v[:1] for k, v in geom.items()}
             width = min(n_keep + 8, n_lags)  # a little spare: chunks differ by a few lags
             table = _ModelTable(geom_1, lags[:width], observable, lo, hi)
