@@ -100,7 +100,8 @@ def _prepare(flow: np.ndarray, design: np.ndarray) -> tuple[np.ndarray, np.ndarr
         raise ChannelFitError("constant flow (zero variance)")
     rows = np.empty((k + 1, flow.shape[0]))
     rows[0] = flow
-    rows[1:] = design.T
+    for start in range(0, flow.shape[0], 4096):  # transpose in cache-sized blocks
+        rows[1:, start : start + 4096] = design[start : start + 4096].T
     if n_valid < flow.shape[0]:
         rows[:, ~valid] = 0.0
     gram = rows @ rows.T

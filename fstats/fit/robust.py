@@ -398,7 +398,11 @@ def irls_rows(
             betas = normal.solve(rows @ response) if normal.cholesky else normal.lstsq(response)
             converged = True
             break
-        weights = tukey_bisquare_weights(resid / scale, c)
+        weights = resid * (1.0 / (scale * c))  # bisquare weights, fewer passes
+        weights *= weights
+        np.subtract(1.0, weights, out=weights)
+        np.maximum(weights, 0.0, out=weights)
+        weights *= weights
         if refresh:
             root_rows = rows * np.sqrt(weights)
             normal = NormalEquations(root_rows @ root_rows.T, root_rows)
