@@ -474,11 +474,12 @@ def _lm_core(
     where Gauss–Newton alone overshoots.  Steps are damped Levenberg–Marquardt style: a
     step that raises χ² is rejected and the damping raised.
 
-    A trial step of at most :data:`_TAYLOR_MAX` from an exactly evaluated point is first
-    judged on the second-order expansion of log g1² (:func:`_taylor_trial`, no
-    exponentials); if that ends the iteration, its β and residuals are the result.  Any
-    other trial (and any Taylor trial that does not end the iteration) is evaluated
-    exactly, so the path of the iteration is the exact one.
+    Points are evaluated from the model ``table`` where it covers them (see
+    :class:`_ModelTable`, relative error < 1e-9), else exactly.  A trial step of at most
+    :data:`_TAYLOR_MAX` from such a point is first judged on the second-order expansion of
+    log g1² about it (:func:`_taylor_trial`); if that ends the iteration, its β and
+    residuals are the result.  Any other trial (and any Taylor trial that does not end
+    the iteration) is evaluated in full, so the path of the iteration is the full one.
 
     Curves that finish are written out; they leave the working arrays once a quarter of
     the rows has finished (until then they stand still: copying the others costs more).
