@@ -11,10 +11,11 @@ This module estimates the between-block variance as a random effect:
 
 1. the condition's column is split into one piece per block (from each onset to
    the next onset of the same condition; the pieces add up to the column);
-2. the pieces are whitened with the main fit's AR filter and the main fit's
-   whitened residuals are regressed on them with its robust weights, giving each
-   block's deviation from the main estimate (amplitudes ``b``) and their noise
-   covariance ``C`` (spectral sandwich, as the main fit);
+2. the pieces are whitened with the main fit's AR filter, the whole design is
+   partialled out of them, and the main fit's whitened residuals are regressed on
+   the result with its robust weights: by Frisch-Waugh-Lovell these are the split
+   model's block amplitudes ``b`` (as deviations from the main estimate), with their
+   noise covariance ``C`` from the spectral sandwich, as in the main fit;
 3. with ``κ`` each block's share of the main estimate (``c̃' W P̃_j / c̃' W c̃``)
    and the centring ``M = I - 1 κ'``, the method-of-moments estimate
    ``τ² = max(0, (‖M b‖² - tr(M C M')) / tr(M M'))`` is the amplitude variance
@@ -37,10 +38,15 @@ from scipy import fft
 from fstats.fit.autoregressive import whiten, whitened_rows
 from fstats.fit.components import VarianceComponent
 from fstats.fit.covariance import spectral_sandwich
-from fstats.fit.ols import design_rank
-from fstats.fit.robust import weighted_least_squares
 
-__all__ = ["MIN_BLOCKS", "BlockSpread", "block_pieces", "between_block_variance", "block_spread"]
+__all__ = [
+    "MIN_BLOCKS",
+    "BlockSpread",
+    "block_pieces",
+    "between_block_variance",
+    "block_spreads",
+    "block_spread",
+]
 
 logger = logging.getLogger(__name__)
 
@@ -130,6 +136,124 @@ def between_block_variance(
     return float(max(0.0, (centred @ centred - noise) / np.trace(m @ m.T)))
 
 
+def block_spreads(
+    flow: np.ndarray,
+    design: np.ndarray,
+    conditions: dict[str, tuple[int, np.ndarray, float]],
+    times_s: np.ndarray,
+    ar_coefs: np.ndarray,
+    weights: np.ndarray,
+    whitened_residuals: np.ndarray,
+    sfreq_hz: float,
+    *,
+    smoothing_hz: float = 0.005,
+    covariance: str = "spectral",
+    min_blocks: int = MIN_BLOCKS,
+) -> dict[str, BlockSpread]:
+    """Between-block variance of several conditions' amplitudes on one channel.
+
+    The block pieces of every condition are whitened with the main fit's AR filter
+    (together with the design, in one pass); for each condition, every design column
+    is partialled out of its pieces (Frisch-Waugh-Lovell, robust weights kept) and the
+    main fit's whitened residuals are regressed on what is left: the coefficients are
+    the split model's block amplitudes (as deviations from the condition's main
+    estimate) without refitting it, and the spectral sandwich of that regression gives
+    their noise covariance.
+
+    Parameters
+    ----------
+    flow : ndarray, shape (n,)
+        The channel's flow (NaN where missing).
+    design : ndarray, shape (n, k)
+        The fitted design.
+    conditions : dict of str to (int, ndarray, float)
+        Condition → (its main column, its onsets in s, the main fit's coefficient).
+    times_s : ndarray, shape (n,)
+        Sample times, s.
+    ar_coefs : ndarray, shape (p,)
+        The main fit's AR filter.
+    weights : ndarray, shape (n,)
+        The main fit's robust weights (NaN where a row was not used).
+    whitened_residuals : ndarray, shape (n,)
+        The main fit's whitened residuals (NaN on rows dropped by whitening).
+    sfreq_hz : float
+        Sampling rate, Hz.
+    smoothing_hz : float
+        Periodogram smoothing of the spectral covariance, Hz.
+    covariance : {"spectral", "model"}
+        Noise covariance of the block amplitudes.
+    min_blocks : int
+        Conditions with fewer blocks (with a non-zero piece) are left out.
+
+    Returns
+    -------
+    dict of str to BlockSpread
+        Conditions left out (too few blocks) are missing; empty when the pieces are
+        rank deficient.
+    """
+    y = np.asarray(flow, dtype=float)
+    x = np.asarray(design, dtype=float)
+    groups, blocks = [], []
+    for name, (column, onsets_s, estimate) in conditions.items():
+        onsets = np.unique(np.asarray(onsets_s, dtype=float))
+        if onsets.size == 0:
+            continue
+        pieces = block_pieces(x[:, column], times_s, onsets)
+        energy = np.sum(pieces**2, axis=0)
+        pieces = pieces[:, energy > 1e-9 * max(float(energy.max(initial=0.0)), 1e-300)]
+        if pieces.shape[1] >= min_blocks:
+            groups.append((name, int(column), float(estimate), pieces.shape[1]))
+            blocks.append(pieces)
+    if not groups:
+        return {}
+    pieces = np.column_stack(blocks)
+    n_pieces = pieces.shape[1]
+    coefs = np.asarray(ar_coefs, dtype=float)
+    valid = np.isfinite(y) & np.isfinite(x).all(axis=1)
+    kept = whitened_rows(valid, coefs.size)
+    resid_main = np.asarray(whitened_residuals, dtype=float)[kept]
+    w_kept = np.asarray(weights, dtype=float)[kept]
+    use = np.isfinite(resid_main) & np.isfinite(w_kept) & (w_kept > 0)
+    both = whiten(np.where(valid[:, None], np.column_stack([pieces, x]), 0.0), coefs, valid)
+    xw, xd = both[use, :n_pieces], both[use, n_pieces:]
+    e, w = resid_main[use], w_kept[use]
+    own = np.linalg.eigvalsh(xw.T @ (w[:, None] * xw))
+    if xw.shape[0] <= n_pieces + xd.shape[1] or own[0] <= 1e-10 * own[-1]:
+        logger.info("no block spread: block pieces are rank deficient")
+        return {}
+    # each condition's pieces with every design column partialled out (Frisch-Waugh-
+    # Lovell); what is left is its block-to-block pattern, orthogonal to its own column.
+    # Conditions are taken one at a time (the others keep one amplitude for all blocks).
+    wx = w[:, None] * xd
+    projection = np.linalg.lstsq(xd.T @ wx, wx.T @ xw, rcond=None)[0]
+    bins = max(1, int(round(smoothing_hz * fft.next_fast_len(e.size, real=True) / sfreq_hz)))
+    out, start = {}, 0
+    for name, column, estimate, n_blocks in groups:
+        sl = slice(start, start + n_blocks)
+        start += n_blocks
+        partial = xw[:, sl] - xd @ projection[:, sl]
+        gram = partial.T @ (w[:, None] * partial)
+        inv = np.linalg.pinv(gram, rcond=1e-10, hermitian=True)
+        deviations = inv @ (partial.T @ (w * e))
+        resid = e - partial @ deviations
+        if covariance == "spectral":
+            cov = spectral_sandwich(partial, resid, w, inv, smoothing_bins=bins).cov
+        else:
+            dof = w.sum() - n_blocks - xd.shape[1] + 1
+            cov = inv * np.sum(w * resid**2) / dof
+        whole = xw[:, sl].sum(axis=1)
+        shares = (w * whole) @ xw[:, sl] / float((w * whole) @ whole)
+        deviations = deviations - shares @ deviations
+        out[name] = BlockSpread(
+            column=column,
+            amplitudes=estimate + deviations,
+            shares=shares,
+            tau2=between_block_variance(deviations, cov, shares),
+            dof=float(n_blocks - 1),
+        )
+    return out
+
+
 def block_spread(
     flow: np.ndarray,
     design: np.ndarray,
@@ -146,82 +270,18 @@ def block_spread(
     covariance: str = "spectral",
     min_blocks: int = MIN_BLOCKS,
 ) -> BlockSpread | None:
-    """Between-block variance of one condition's amplitude on one channel.
-
-    The block pieces are whitened with the main fit's AR filter and the main fit's
-    whitened residuals are regressed on them (robust weights kept): the coefficients
-    are the blocks' deviations from the main estimate, and the spectral sandwich of
-    that regression gives their noise covariance.  (The other design columns are not
-    refitted; the main residuals are already free of them.)
-
-    Parameters
-    ----------
-    flow : ndarray, shape (n,)
-        The channel's flow (NaN where missing).
-    design : ndarray, shape (n, k)
-        The fitted design.
-    column : int
-        The condition's (main) column.
-    times_s : ndarray, shape (n,)
-        Sample times, s.
-    onsets_s : ndarray, shape (N,)
-        The condition's onsets, s.
-    ar_coefs : ndarray, shape (p,)
-        The main fit's AR filter.
-    weights : ndarray, shape (n,)
-        The main fit's robust weights (NaN where a row was not used).
-    whitened_residuals : ndarray, shape (n,)
-        The main fit's whitened residuals (NaN on rows dropped by whitening).
-    estimate : float
-        The main fit's coefficient of ``column``.
-    sfreq_hz : float
-        Sampling rate, Hz.
-    smoothing_hz : float
-        Periodogram smoothing of the spectral covariance, Hz.
-    covariance : {"spectral", "model"}
-        Noise covariance of the block amplitudes.
-    min_blocks : int
-        Fewer blocks (with a non-zero piece) give None.
-
-    Returns
-    -------
-    BlockSpread or None
-        None when there are too few blocks or the pieces are rank deficient.
-    """
-    y = np.asarray(flow, dtype=float)
-    x = np.asarray(design, dtype=float)
-    onsets = np.unique(np.asarray(onsets_s, dtype=float))
-    pieces = block_pieces(x[:, column], times_s, onsets)
-    energy = np.sum(pieces**2, axis=0)
-    pieces = pieces[:, energy > 1e-9 * max(float(energy.max(initial=0.0)), 1e-300)]
-    n_blocks = pieces.shape[1]
-    if n_blocks < min_blocks:
-        return None
-    coefs = np.asarray(ar_coefs, dtype=float)
-    valid = np.isfinite(y) & np.isfinite(x).all(axis=1)
-    kept = whitened_rows(valid, coefs.size)
-    resid_main = np.asarray(whitened_residuals, dtype=float)[kept]
-    w_kept = np.asarray(weights, dtype=float)[kept]
-    use = np.isfinite(resid_main) & np.isfinite(w_kept) & (w_kept > 0)
-    xw = whiten(np.where(valid[:, None], pieces, 0.0), coefs, valid)[use]
-    e, w = resid_main[use], w_kept[use]
-    if xw.shape[0] <= n_blocks or design_rank(xw) < n_blocks:
-        logger.info("no block spread for column %d: block pieces are rank deficient", column)
-        return None
-    deviations, inv = weighted_least_squares(e, xw, w)
-    resid = e - xw @ deviations
-    if covariance == "spectral":
-        bins = max(1, int(round(smoothing_hz * fft.next_fast_len(e.size, real=True) / sfreq_hz)))
-        cov = spectral_sandwich(xw, resid, w, inv, smoothing_bins=bins).cov
-    else:
-        dof = w.sum() - n_blocks
-        cov = inv * np.sum(w * resid**2) / dof
-    whole = xw.sum(axis=1)
-    shares = (w * whole) @ xw / float((w * whole) @ whole)
-    return BlockSpread(
-        column=int(column),
-        amplitudes=float(estimate) + deviations,
-        shares=shares,
-        tau2=between_block_variance(deviations, cov, shares),
-        dof=float(n_blocks - 1),
+    """:func:`block_spreads` for one condition (None when it has too few blocks)."""
+    found = block_spreads(
+        flow,
+        design,
+        {"condition": (column, onsets_s, estimate)},
+        times_s,
+        ar_coefs,
+        weights,
+        whitened_residuals,
+        sfreq_hz,
+        smoothing_hz=smoothing_hz,
+        covariance=covariance,
+        min_blocks=min_blocks,
     )
+    return found.get("condition")

@@ -17,7 +17,7 @@ import pandas as pd
 from fstats.design.matrix import DesignMatrix
 from fstats.errors import FitWarning, InputError, suggest
 from fstats.fit.autoregressive import default_max_ar_order
-from fstats.fit.block_spread import block_spread
+from fstats.fit.block_spread import block_spreads
 from fstats.fit.components import VarianceComponent, combined_dof, components_covariance
 from fstats.fit.coupling import coupling_spread
 from fstats.fit.diagnostics import acf, durbin_watson, ljung_box, r_squared, variance_share
@@ -495,27 +495,23 @@ class SubjectGLM:
             events = recording.events
         if events is None or not hasattr(events, "select"):
             return {}
-        out = {}
+        wanted = {}
         for cond, cols in design.conditions.items():
             if cond in design.fir_times_s or not cols or cols[0] not in col_names:
                 continue
-            onsets = events.select(cond).onsets_s
-            if onsets.size == 0:
-                continue
-            spread = block_spread(
-                flow,
-                x,
-                col_names.index(cols[0]),
-                recording.times_s,
-                onsets,
-                est.ar_coefs,
-                est.weights,
-                est.whitened_residuals,
-                float(est.betas[col_names.index(cols[0])]),
-                sfreq,
-                smoothing_hz=self.smoothing_hz,
-                covariance=self.covariance,
-            )
-            if spread is not None:
-                out[cond] = spread
-        return out
+            j = col_names.index(cols[0])
+            wanted[cond] = (j, events.select(cond).onsets_s, float(est.betas[j]))
+        if not wanted:
+            return {}
+        return block_spreads(
+            flow,
+            x,
+            wanted,
+            recording.times_s,
+            est.ar_coefs,
+            est.weights,
+            est.whitened_residuals,
+            sfreq,
+            smoothing_hz=self.smoothing_hz,
+            covariance=self.covariance,
+        )

@@ -71,10 +71,11 @@ def _main_fit(y, x, coefs):
     return betas, white
 
 
-def test_block_deviations_equal_statsmodels_ols_without_filter():
-    """Source: statsmodels OLS - with no AR filter, unit weights and the model
-    covariance, the block amplitudes are the main estimate plus the OLS coefficients
-    of the main residuals on the block pieces."""
+def test_block_amplitudes_equal_the_split_model_statsmodels_ols():
+    """Source: statsmodels OLS and Frisch-Waugh-Lovell - with no AR filter, unit weights
+    and the model covariance, the block amplitudes (around their mean) equal the OLS
+    coefficients of the split design (one column per block plus the other columns),
+    although only the main fit's residuals are regressed."""
     rng = np.random.default_rng(2)
     times, onsets, column = _blocks()
     x = np.column_stack([column, np.ones_like(times), np.cos(np.pi * times / times[-1])])
@@ -96,8 +97,10 @@ def test_block_deviations_equal_statsmodels_ols_without_filter():
         FS,
         covariance="model",
     )
-    ref = sm.OLS(main.resid, pieces).fit()
-    np.testing.assert_allclose(spread.amplitudes, main.params[0] + ref.params, rtol=1e-8)
+    ref = sm.OLS(y, np.column_stack([pieces, x[:, 1:]])).fit().params[: onsets.size]
+    ours = spread.amplitudes
+    np.testing.assert_allclose(ours - ours.mean(), ref - ref.mean(), rtol=1e-8, atol=1e-10)
+    assert ours.mean() == pytest.approx(main.params[0])
     assert spread.shares.sum() == pytest.approx(1.0)
     assert spread.dof == onsets.size - 1
 
