@@ -111,6 +111,26 @@ def block_pieces(column: np.ndarray, times_s: np.ndarray, onsets_s: np.ndarray) 
     return pieces
 
 
+def _whiten_pieces(pieces: np.ndarray, coefs: np.ndarray, kept: np.ndarray) -> np.ndarray:
+    """AR-whiten block pieces on their own support (each is zero outside one window).
+
+    Same result as :func:`fstats.fit.autoregressive.whiten` on the pieces (rows
+    ``kept``), at the cost of one series: piece j is filtered only from its first
+    non-zero sample to p samples after its last.
+    """
+    b = np.concatenate([[1.0], -np.asarray(coefs, dtype=float)])
+    n = pieces.shape[0]
+    out = np.zeros_like(pieces)
+    for j in range(pieces.shape[1]):
+        nonzero = np.flatnonzero(pieces[:, j])
+        if nonzero.size == 0:
+            continue
+        lo, hi = int(nonzero[0]), int(nonzero[-1]) + 1
+        stop = min(hi + b.size - 1, n)
+        out[lo:stop, j] = np.convolve(pieces[lo:hi, j], b)[: stop - lo]
+    return out[kept]
+
+
 def between_block_variance(
     amplitudes: np.ndarray, covariance: np.ndarray, shares: np.ndarray
 ) -> float:
@@ -214,8 +234,8 @@ def block_spreads(
     resid_main = np.asarray(whitened_residuals, dtype=float)[kept]
     w_kept = np.asarray(weights, dtype=float)[kept]
     use = np.isfinite(resid_main) & np.isfinite(w_kept) & (w_kept > 0)
-    both = whiten(np.where(valid[:, None], np.column_stack([pieces, x]), 0.0), coefs, valid)
-    xw, xd = both[use, :n_pieces], both[use, n_pieces:]
+    xd = whiten(np.where(valid[:, None], x, 0.0), coefs, valid)[use]
+    xw = _whiten_pieces(np.where(valid[:, None], pieces, 0.0), coefs, kept)[use]
     e, w = resid_main[use], w_kept[use]
     own = np.linalg.eigvalsh(xw.T @ (w[:, None] * xw))
     if xw.shape[0] <= n_pieces + xd.shape[1] or own[0] <= 1e-10 * own[-1]:

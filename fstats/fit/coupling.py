@@ -227,9 +227,14 @@ def coupling_spread(
     xw = x[ok] * root[:, None]
     k = x.shape[1]
     out = []
+    gram = xw.T @ xw
+    cross = xw.T @ yw
     for j in short_columns:
         others = [i for i in range(k) if i != j]
-        coef, *_ = np.linalg.lstsq(xw[:, others], np.column_stack([yw, xw[:, j]]), rcond=None)
+        rhs = np.column_stack([cross[others], gram[others, j]])
+        # normal equations (the design is small and the columns are scaled); lstsq on
+        # the Gram falls back gracefully when it is singular
+        coef = np.linalg.lstsq(gram[np.ix_(others, others)], rhs, rcond=None)[0]
         ry = yw - xw[:, others] @ coef[:, 0]
         rx = xw[:, j] - xw[:, others] @ coef[:, 1]
         h, v, edges = band_couplings(ry, rx, sfreq_hz, band_edges_hz)
