@@ -161,3 +161,21 @@ def test_glm_adds_the_block_component_on_the_condition_only():
     assert extra[j, j] >= 0 and np.all(extra[np.ix_(others, others)] == 0)
     info = a.diagnostics["block_spread"]["subtract"]
     assert info["n_blocks"] == len(design.info["events"].select("subtract").onsets_s)
+
+
+def test_pieces_whitened_on_their_support_equal_the_full_filter():
+    """Source: common practice (a causal FIR filter of a signal that is zero outside a
+    window is zero before it and p samples after it) - whitening each piece on its own
+    support equals fstats' whiten on the whole series, with gaps, to 1e-12."""
+    from fstats.fit.block_spread import _whiten_pieces
+
+    rng = np.random.default_rng(8)
+    times, onsets, column = _blocks()
+    pieces = block_pieces(column + 0.01, times, onsets)
+    valid = rng.random(times.size) > 0.01
+    coefs = rng.normal(0.0, 0.1, 15)
+    kept = whitened_rows(valid, coefs.size)
+    zeroed = np.where(valid[:, None], pieces, 0.0)
+    np.testing.assert_allclose(
+        _whiten_pieces(zeroed, coefs, kept), whiten(zeroed, coefs, valid), atol=1e-12
+    )
