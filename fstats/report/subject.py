@@ -135,6 +135,26 @@ def _diagnostic(diag: dict, *names):
     return None
 
 
+def _spread_cells(diag: dict, baseline) -> dict:
+    """Text cells for the two variance components of a channel (empty when absent).
+
+    Coupling: the between-band sd of the short-channel coupling in percent of the
+    fitted coupling; block: the between-block sd of each condition's amplitude in
+    percent of the channel's baseline flow.
+    """
+    coupling = []
+    for name, info in (diag.get("short_coupling") or {}).items():
+        fitted = info.get("fitted")
+        if fitted:
+            coupling.append(f"{name}: ±{100.0 * info['tau'] / abs(fitted):.0f} %")
+    blocks = []
+    base = float(baseline) if baseline is not None and np.isfinite(baseline) else np.nan
+    for cond, info in (diag.get("block_spread") or {}).items():
+        if np.isfinite(base) and base > 0:
+            blocks.append(f"{cond}: {100.0 * info['tau'] / base:.2f} % ({info['n_blocks']} blocks)")
+    return {"coupling_spread": "; ".join(coupling), "block_spread": "; ".join(blocks)}
+
+
 def _residual_checks(fits: dict, sfreq_hz: float) -> tuple[dict, dict, dict]:
     """Residual table plus ACF before/after whitening per fitted channel."""
     max_lag = int(min(200, max(10, round(10 * sfreq_hz))))
@@ -173,6 +193,8 @@ def _residual_checks(fits: dict, sfreq_hz: float) -> tuple[dict, dict, dict]:
                 "durbin_watson": dw,
                 "ljung_box_p": lb,
                 "short_share": _diagnostic(diag, "short_share"),
+                "downweighted": _diagnostic(diag, "downweighted_fraction"),
+                **_spread_cells(diag, _access.field_of(cf, "baseline_flow")),
             }
         )
     table = (
@@ -187,6 +209,8 @@ def _residual_checks(fits: dict, sfreq_hz: float) -> tuple[dict, dict, dict]:
                 ("ljung_box_p", "Ljung–Box p (whitened)", "p"),
                 ("short_share", "short-channel share", "num"),
                 ("downweighted", "down-weighted fraction", "num"),
+                ("coupling_spread", "coupling spread across bands", "text"),
+                ("block_spread", "block-to-block amplitude spread", "text"),
             ],
         )
         if records
