@@ -86,6 +86,19 @@ class _Workspace:
         return flat[: n * m].reshape(n, m)
 
 
+def _exp_series(a: np.ndarray, out: np.ndarray) -> np.ndarray:
+    """``exp(a)`` to fourth order, ``1 + a + a²/2 + a³/6 + a⁴/24``, written into ``out``."""
+    np.multiply(a, 1.0 / 24.0, out=out)
+    out += 1.0 / 6.0
+    out *= a
+    out += 0.5
+    out *= a
+    out += 1.0
+    out *= a
+    out += 1.0
+    return out
+
+
 def _buf(ws, name, n, m):
     return np.empty((n, m)) if ws is None else ws.take(name, n, m)
 
@@ -289,14 +302,7 @@ def _table_trial(u, table, beta_fixed, wy, w, ws, tag, rtag):
     a = np.multiply(lpp, 0.5 * delta, out=_buf(ws, "_q", n, m))
     a += dlog
     a *= delta
-    factor = np.multiply(a, 1.0 / 24.0, out=_buf(ws, "_k", n, m))
-    factor += 1.0 / 6.0
-    factor *= a
-    factor += 0.5
-    factor *= a
-    factor += 1.0
-    factor *= a
-    factor += 1.0
+    factor = _exp_series(a, _buf(ws, "_k", n, m))
     jb *= factor
     jb *= w
     np.multiply(lpp, delta, out=a)
@@ -343,14 +349,7 @@ def _taylor_trial(du, jb, dlog, lpp, beta_fixed, wy, ws, tag):
     a = np.multiply(lpp, 0.5 * step, out=_buf(ws, "_q", n, m))
     a += dlog
     a *= step
-    factor = np.multiply(a, 1.0 / 24.0, out=_buf(ws, "_k", n, m))
-    factor += 1.0 / 6.0
-    factor *= a
-    factor += 0.5
-    factor *= a
-    factor += 1.0
-    factor *= a
-    factor += 1.0
+    factor = _exp_series(a, _buf(ws, "_k", n, m))
     factor *= jb
     return _profile(factor, beta_fixed, wy, _buf(ws, "r" + tag, n, m))
 
