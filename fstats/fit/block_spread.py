@@ -25,6 +25,16 @@ This module estimates the between-block variance as a random effect:
    ``N - 1`` degrees of freedom for N blocks.
 
 Under the null (no response) the amplitudes vary only by noise and τ² is mostly 0.
+
+Cost.  A piece is zero outside its block's window, so it is filtered on that window
+alone (all pieces together cost one series, and no (n, N) array is formed); the main
+fit's whitened design can be handed in instead of whitening the design again; the
+pieces' Gram matrix comes from their overlaps and the partialled pieces' one by
+Frisch-Waugh-Lovell (``V'WV - (X̃'WV)' P``); and the sandwich (the formula of
+:func:`fstats.fit.covariance.spectral_sandwich`, covariance only) takes the partialled
+pieces as rows, time along the last axis and zero-padded to the FFT length.  What is
+left is mostly the 2N + 1 FFTs per condition (pieces, weighted pieces, influence
+series) and one N × k × n product.
 """
 
 from __future__ import annotations
@@ -37,7 +47,6 @@ from scipy import fft
 
 from fstats.fit.autoregressive import whiten, whitened_rows
 from fstats.fit.components import VarianceComponent
-from fstats.fit.covariance import spectral_sandwich
 
 __all__ = [
     "MIN_BLOCKS",
@@ -85,6 +94,12 @@ class BlockSpread:
         return VarianceComponent(name, loading, self.tau2, self.dof)
 
 
+def _block_index(times_s: np.ndarray, onsets: np.ndarray) -> np.ndarray:
+    """Block of every sample: its last onset (block 0 before the first onset)."""
+    index = np.searchsorted(onsets, np.asarray(times_s, dtype=float), side="right") - 1
+    return np.clip(index, 0, onsets.size - 1)
+
+
 def block_pieces(column: np.ndarray, times_s: np.ndarray, onsets_s: np.ndarray) -> np.ndarray:
     """Split a regressor into one piece per block.
 
@@ -105,10 +120,48 @@ def block_pieces(column: np.ndarray, times_s: np.ndarray, onsets_s: np.ndarray) 
     ndarray, shape (n, N)
     """
     onsets = np.sort(np.asarray(onsets_s, dtype=float))
-    index = np.clip(np.searchsorted(onsets, times_s, side="right") - 1, 0, onsets.size - 1)
+    index = _block_index(times_s, onsets)
     pieces = np.zeros((column.size, onsets.size))
     pieces[np.arange(column.size), index] = column
     return pieces
+
+
+def _block_windows(
+    column: np.ndarray, index: np.ndarray, n_blocks: int
+) -> list[tuple[int, np.ndarray]]:
+    """Each block's piece as (its first sample, its values up to its last sample).
+
+    The same pieces as :func:`block_pieces` without the (n, N) array: with sorted
+    times a block's samples are one window of the column; otherwise the window runs
+    from the block's first to its last sample and is zero where another block is.
+    """
+    n = index.size
+    if np.all(index[1:] >= index[:-1]):
+        bounds = np.searchsorted(index, np.arange(n_blocks + 1))
+        return [(int(lo), column[lo:hi]) for lo, hi in zip(bounds[:-1], bounds[1:], strict=True)]
+    windows = []
+    for j in range(n_blocks):
+        at = np.flatnonzero(index == j)
+        lo, hi = (int(at[0]), int(at[-1]) + 1) if at.size else (n, n)
+        windows.append((lo, np.where(index[lo:hi] == j, column[lo:hi], 0.0)))
+    return windows
+
+
+def _filter_support(
+    values: np.ndarray, taps: np.ndarray, offset: int, n: int
+) -> tuple[int, np.ndarray]:
+    """Causal FIR filter of a series that is zero outside ``values`` (from sample ``offset``).
+
+    The output is zero before the first non-zero value and from ``taps.size - 1``
+    samples after the last one, so only that stretch is computed: returns its first
+    sample and its values (cut at sample ``n``).
+    """
+    nonzero = np.flatnonzero(values)
+    if nonzero.size == 0:
+        return offset, np.zeros(0)
+    lo, hi = int(nonzero[0]), int(nonzero[-1]) + 1
+    stop = min(offset + hi + taps.size - 1, n)
+    return offset + lo, np.convolve(values[lo:hi], taps)[: stop - offset - lo]
 
 
 def _whiten_pieces(pieces: np.ndarray, coefs: np.ndarray, kept: np.ndarray) -> np.ndarray:
@@ -116,19 +169,21 @@ def _whiten_pieces(pieces: np.ndarray, coefs: np.ndarray, kept: np.ndarray) -> n
 
     Same result as :func:`fstats.fit.autoregressive.whiten` on the pieces (rows
     ``kept``), at the cost of one series: piece j is filtered only from its first
-    non-zero sample to p samples after its last.
+    non-zero sample to p samples after its last (:func:`_filter_support`, which
+    :func:`block_spreads` applies to the block windows directly).
     """
-    b = np.concatenate([[1.0], -np.asarray(coefs, dtype=float)])
+    taps = np.concatenate([[1.0], -np.asarray(coefs, dtype=float)])
     n = pieces.shape[0]
-    out = np.zeros_like(pieces)
-    for j in range(pieces.shape[1]):
-        nonzero = np.flatnonzero(pieces[:, j])
-        if nonzero.size == 0:
-            continue
-        lo, hi = int(nonzero[0]), int(nonzero[-1]) + 1
-        stop = min(hi + b.size - 1, n)
-        out[lo:stop, j] = np.convolve(pieces[lo:hi, j], b)[: stop - lo]
-    return out[kept]
+    row = np.cumsum(kept) - 1  # row of each kept sample in the output
+    out = np.zeros((row[-1] + 1 if n else 0, pieces.shape[1]))
+    nonzero = pieces != 0
+    first = nonzero.argmax(axis=0)
+    last = n - nonzero[::-1].argmax(axis=0)
+    for j in np.flatnonzero(nonzero.any(axis=0)):
+        start, values = _filter_support(pieces[first[j] : last[j], j], taps, int(first[j]), n)
+        on = kept[start : start + values.size]
+        out[row[start : start + values.size][on], j] = values[on]
+    return out
 
 
 def between_block_variance(
@@ -156,6 +211,120 @@ def between_block_variance(
     return float(max(0.0, (centred @ centred - noise) / np.trace(m @ m.T)))
 
 
+def _running_sum(values: np.ndarray, half_width: int) -> np.ndarray:
+    """Daniell smoother of :mod:`fstats.fit.covariance`: sum over ±half_width bins, reflected."""
+    if half_width == 0:
+        return np.array(values, dtype=float, copy=True)
+    m = min(half_width, values.shape[0] - 1)
+    padded = np.concatenate([values[m:0:-1], values, values[-2 : -m - 2 : -1]])
+    csum = np.concatenate([[0.0], np.cumsum(padded)])
+    out = csum[2 * m + 1 :] - csum[: -2 * m - 1]
+    if m < half_width:  # very short series: scale to the nominal window length
+        out = out * (2 * half_width + 1) / (2 * m + 1)
+    return out
+
+
+def _sandwich_cov(
+    rows: np.ndarray,
+    weighted_rows: np.ndarray | None,
+    psi: np.ndarray,
+    xtwx_inv: np.ndarray,
+    *,
+    smoothing_bins: int,
+    n_samples: int | None = None,
+) -> np.ndarray:
+    """``spectral_sandwich(rows.T, ...).cov`` of :mod:`fstats.fit.covariance`, from rows.
+
+    The same formula with the regressors one per row (the layout the FFTs along time
+    want) and nothing else of the sandwich computed.
+
+    Parameters
+    ----------
+    rows : ndarray, shape (k, m)
+        Prewhitened regressors ``X̃'``, C-contiguous; ``m`` may exceed ``n_samples``
+        (zero padding up to the FFT length, which then saves a copy).
+    weighted_rows : ndarray, shape (k, m) or None
+        ``(√W X̃)'`` (None: unit weights, the same as ``rows``).
+    psi : ndarray, shape (n_samples,)
+        Influence series ``w ẽ`` (flow unit).
+    xtwx_inv : ndarray, shape (k, k)
+        ``(X̃'WX̃)^-1``, also the bread.
+    smoothing_bins : int
+        Half-width of the Daniell smoother, in frequency bins.
+    n_samples : int, optional
+        Number of samples (default ``m``).
+
+    Returns
+    -------
+    ndarray, shape (k, k)
+    """
+    n = rows.shape[1] if n_samples is None else int(n_samples)
+    n_fft = fft.next_fast_len(n, real=True)
+
+    def spectrum(values: np.ndarray) -> np.ndarray:
+        if values.shape[-1] == n_fft:
+            return fft.rfft(values, axis=-1)
+        return fft.rfft(values[..., :n], n=n_fft, axis=-1)
+
+    g = spectrum(rows)
+    gw = g if weighted_rows is None else spectrum(weighted_rows)
+    periodogram = np.abs(spectrum(psi)) ** 2 / n
+    flat = gw.view(np.float64)  # Re and Im interleaved, (k, 2 n_freqs)
+    quad = np.einsum("kf,kf->f", flat, xtwx_inv @ flat)
+    leverage = (quad[0::2] + quad[1::2]) / n
+    adjust = np.clip(1.0 - leverage, 0.0, 1.0)
+    noise = _running_sum(periodogram, smoothing_bins) / np.maximum(
+        _running_sum(adjust, smoothing_bins), 0.1 * (2 * smoothing_bins + 1)
+    )
+    side = np.full(noise.size, 2.0)
+    side[0] = 1.0
+    if n_fft % 2 == 0:
+        side[-1] = 1.0
+    scaled = g.view(np.float64) * np.repeat(np.sqrt(side / n_fft * noise), 2)
+    cov = xtwx_inv.T @ (scaled @ scaled.T) @ xtwx_inv
+    return 0.5 * (cov + cov.T)
+
+
+def _finite_rows(x: np.ndarray) -> np.ndarray:
+    """Rows of ``x`` (n, k) without NaN or inf (one sum settles the common all-finite case)."""
+    if np.isfinite(x.sum()):
+        return np.ones(x.shape[0], dtype=bool)
+    return np.isfinite(x).all(axis=1)
+
+
+def _take_rows(values: np.ndarray, rows: np.ndarray) -> np.ndarray:
+    """``values[rows]`` for a boolean ``rows``, copied in ``values``' own memory order.
+
+    A transposed view of row-major series keeps that layout: the kept stretches between
+    dropped rows are copied as slices along time.
+    """
+    if not values.T.flags.c_contiguous:
+        return np.compress(rows, values, axis=0)
+    series = values.T
+    dropped = np.flatnonzero(~rows)
+    starts = np.concatenate([[0], dropped + 1])
+    stops = np.concatenate([dropped, [rows.size]])
+    return np.concatenate(
+        [series[:, a:z] for a, z in zip(starts, stops, strict=True) if z > a], axis=1
+    ).T
+
+
+def _segment_gram(segments: list[tuple[int, np.ndarray]], weighted: list[np.ndarray]) -> np.ndarray:
+    """Gram matrix ``Σ_t w_t v_i,t v_j,t`` of series that are zero outside one stretch each."""
+    starts = np.array([s for s, _ in segments])
+    stops = starts + np.array([v.size for _, v in segments])
+    lo = np.maximum.outer(starts, starts)
+    hi = np.minimum.outer(stops, stops)
+    gram = np.zeros((starts.size, starts.size))
+    for i, j in zip(*np.nonzero(np.triu(lo < hi)), strict=True):
+        a, z = lo[i, j], hi[i, j]
+        gram[i, j] = gram[j, i] = (
+            weighted[i][a - starts[i] : z - starts[i]]
+            @ segments[j][1][a - starts[j] : z - starts[j]]
+        )
+    return gram
+
+
 def block_spreads(
     flow: np.ndarray,
     design: np.ndarray,
@@ -169,16 +338,17 @@ def block_spreads(
     smoothing_hz: float = 0.005,
     covariance: str = "spectral",
     min_blocks: int = MIN_BLOCKS,
+    whitened_design: np.ndarray | None = None,
 ) -> dict[str, BlockSpread]:
     """Between-block variance of several conditions' amplitudes on one channel.
 
     The block pieces of every condition are whitened with the main fit's AR filter
-    (together with the design, in one pass); for each condition, every design column
-    is partialled out of its pieces (Frisch-Waugh-Lovell, robust weights kept) and the
-    main fit's whitened residuals are regressed on what is left: the coefficients are
-    the split model's block amplitudes (as deviations from the condition's main
-    estimate) without refitting it, and the spectral sandwich of that regression gives
-    their noise covariance.
+    (each on its own window); for each condition, every design column is partialled
+    out of its pieces (Frisch-Waugh-Lovell, robust weights kept) and the main fit's
+    whitened residuals are regressed on what is left: the coefficients are the split
+    model's block amplitudes (as deviations from the condition's main estimate)
+    without refitting it, and the spectral sandwich of that regression gives their
+    noise covariance.
 
     Parameters
     ----------
@@ -204,6 +374,11 @@ def block_spreads(
         Noise covariance of the block amplitudes.
     min_blocks : int
         Conditions with fewer blocks (with a non-zero piece) are left out.
+    whitened_design : ndarray, shape (n_kept, k), optional
+        The main fit's whitened design on the rows kept by whitening
+        (:func:`fstats.fit.autoregressive.whitened_rows` of the rows where the flow
+        and the design are finite), in either memory order; saves whitening the
+        design again.  Default: whiten it here.
 
     Returns
     -------
@@ -213,56 +388,113 @@ def block_spreads(
     """
     y = np.asarray(flow, dtype=float)
     x = np.asarray(design, dtype=float)
-    groups, blocks = [], []
+    n, k = x.shape
+    coefs = np.asarray(ar_coefs, dtype=float)
+    taps = np.concatenate([[1.0], -coefs])
+    valid = np.isfinite(y) & _finite_rows(x)
+    kept = whitened_rows(valid, coefs.size)
+    resid_all = np.asarray(whitened_residuals, dtype=float)
+    w_all = np.asarray(weights, dtype=float)
+    used = kept & np.isfinite(resid_all) & np.isfinite(w_all) & (w_all > 0)
+    groups = []
     for name, (column, onsets_s, estimate) in conditions.items():
         onsets = np.unique(np.asarray(onsets_s, dtype=float))
         if onsets.size == 0:
             continue
-        pieces = block_pieces(x[:, column], times_s, onsets)
-        energy = np.sum(pieces**2, axis=0)
-        pieces = pieces[:, energy > 1e-9 * max(float(energy.max(initial=0.0)), 1e-300)]
-        if pieces.shape[1] >= min_blocks:
-            groups.append((name, int(column), float(estimate), pieces.shape[1]))
-            blocks.append(pieces)
+        col = np.ascontiguousarray(x[:, column])
+        windows = _block_windows(col, _block_index(times_s, onsets), onsets.size)
+        energy = np.array([values @ values for _, values in windows])
+        floor = 1e-9 * max(float(energy.max(initial=0.0)), 1e-300)
+        windows = [win for win, e in zip(windows, energy, strict=True) if e > floor]
+        if len(windows) >= min_blocks:
+            groups.append((name, int(column), float(estimate), windows))
     if not groups:
         return {}
-    pieces = np.column_stack(blocks)
-    n_pieces = pieces.shape[1]
-    coefs = np.asarray(ar_coefs, dtype=float)
-    valid = np.isfinite(y) & np.isfinite(x).all(axis=1)
-    kept = whitened_rows(valid, coefs.size)
-    resid_main = np.asarray(whitened_residuals, dtype=float)[kept]
-    w_kept = np.asarray(weights, dtype=float)[kept]
-    use = np.isfinite(resid_main) & np.isfinite(w_kept) & (w_kept > 0)
-    xd = whiten(np.where(valid[:, None], x, 0.0), coefs, valid)[use]
-    xw = _whiten_pieces(np.where(valid[:, None], pieces, 0.0), coefs, kept)[use]
-    e, w = resid_main[use], w_kept[use]
-    own = np.linalg.eigvalsh(xw.T @ (w[:, None] * xw))
-    if xw.shape[0] <= n_pieces + xd.shape[1] or own[0] <= 1e-10 * own[-1]:
+    # whitened pieces as (first used row, values on the used rows from there): the used
+    # rows of a window are consecutive once the others are closed up
+    position = np.concatenate([[0], np.cumsum(used)])
+    segments = []
+    for *_, windows in groups:
+        for lo, values in windows:
+            masked = np.where(valid[lo : lo + values.size], values, 0.0)
+            start, white = _filter_support(masked, taps, lo, n)
+            on = used[start : start + white.size]
+            segments.append((int(position[start]), white if on.all() else white[on]))
+    n_used, n_pieces = int(position[-1]), len(segments)
+    if n_used <= n_pieces + k:
         logger.info("no block spread: block pieces are rank deficient")
         return {}
+    e, w = resid_all[used], w_all[used]
+    weighted = [w[s : s + v.size] * v for s, v in segments]
+    piece_gram = _segment_gram(segments, weighted)
+    own = np.linalg.eigvalsh(piece_gram)
+    if own[0] <= 1e-10 * own[-1]:
+        logger.info("no block spread: block pieces are rank deficient")
+        return {}
+    if whitened_design is None:
+        xd = whiten(x, coefs, valid)
+    else:
+        xd = np.asarray(whitened_design, dtype=float)
+        if xd.shape != (int(kept.sum()), k):
+            raise ValueError(f"whitened_design has shape {xd.shape}, not {(int(kept.sum()), k)}")
+    use = used[kept]
+    if not use.all():
+        xd = _take_rows(xd, use)
     # each condition's pieces with every design column partialled out (Frisch-Waugh-
     # Lovell); what is left is its block-to-block pattern, orthogonal to its own column.
     # Conditions are taken one at a time (the others keep one amplitude for all blocks).
-    wx = w[:, None] * xd
-    projection = np.linalg.lstsq(xd.T @ wx, wx.T @ xw, rcond=None)[0]
-    bins = max(1, int(round(smoothing_hz * fft.next_fast_len(e.size, real=True) / sfreq_hz)))
-    out, start = {}, 0
-    for name, column, estimate, n_blocks in groups:
-        sl = slice(start, start + n_blocks)
-        start += n_blocks
-        partial = xw[:, sl] - xd @ projection[:, sl]
-        gram = partial.T @ (w[:, None] * partial)
-        inv = np.linalg.pinv(gram, rcond=1e-10, hermitian=True)
-        deviations = inv @ (partial.T @ (w * e))
-        resid = e - partial @ deviations
-        if covariance == "spectral":
-            cov = spectral_sandwich(partial, resid, w, inv, smoothing_bins=bins).cov
+    root = np.sqrt(w)
+    xdw = xd * root[:, None]
+    cross = np.column_stack(
+        [xd[s : s + v.size].T @ wv for (s, v), wv in zip(segments, weighted, strict=True)]
+    )
+    projection = np.linalg.lstsq(xdw.T @ xdw, cross, rcond=None)[0]
+    n_fft = fft.next_fast_len(n_used, real=True)
+    bins = max(1, int(round(smoothing_hz * n_fft / sfreq_hz)))
+    unit = bool(np.all(w == 1.0))
+    we = w * e
+    out, first = {}, 0
+    for name, column, estimate, windows in groups:
+        n_blocks = len(windows)
+        sl = slice(first, first + n_blocks)
+        pieces = segments[sl]
+        # rows (n_blocks, n_fft), zero beyond the used rows: the FFT length, uncopied
+        rows = np.empty((n_blocks, n_fft))
+        rows[:, n_used:] = 0.0
+        partial = rows[:, :n_used]
+        np.matmul(projection[:, sl].T, xd.T, out=partial)
+        np.negative(partial, out=partial)
+        first += n_blocks
+        for i, (s, v) in enumerate(pieces):
+            partial[i, s : s + v.size] += v
+        if unit:
+            wrows = rows
         else:
-            dof = w.sum() - n_blocks - xd.shape[1] + 1
+            wrows = np.empty_like(rows)
+            wrows[:, n_used:] = 0.0
+            np.multiply(partial, root, out=wrows[:, :n_used])
+        # partial' W partial = V'WV - (X̃'WV)' P by Frisch-Waugh-Lovell, from the pieces
+        gram = piece_gram[sl, sl] - cross[:, sl].T @ projection[:, sl]
+        inv = np.linalg.pinv(0.5 * (gram + gram.T), rcond=1e-10, hermitian=True)
+        deviations = inv @ (partial @ we)
+        resid = e - deviations @ partial
+        if covariance == "spectral":
+            cov = _sandwich_cov(
+                rows,
+                None if unit else wrows,
+                w * resid,
+                inv,
+                smoothing_bins=bins,
+                n_samples=n_used,
+            )
+        else:
+            dof = w.sum() - n_blocks - k + 1
             cov = inv * np.sum(w * resid**2) / dof
-        whole = xw[:, sl].sum(axis=1)
-        shares = (w * whole) @ xw[:, sl] / float((w * whole) @ whole)
+        whole = np.zeros(n_used)
+        for s, v in pieces:
+            whole[s : s + v.size] += v
+        ww = w * whole
+        shares = np.array([ww[s : s + v.size] @ v for s, v in pieces]) / float(ww @ whole)
         deviations = deviations - shares @ deviations
         out[name] = BlockSpread(
             column=column,
@@ -289,6 +521,7 @@ def block_spread(
     smoothing_hz: float = 0.005,
     covariance: str = "spectral",
     min_blocks: int = MIN_BLOCKS,
+    whitened_design: np.ndarray | None = None,
 ) -> BlockSpread | None:
     """:func:`block_spreads` for one condition (None when it has too few blocks)."""
     found = block_spreads(
@@ -303,5 +536,6 @@ def block_spread(
         smoothing_hz=smoothing_hz,
         covariance=covariance,
         min_blocks=min_blocks,
+        whitened_design=whitened_design,
     )
     return found.get("condition")
