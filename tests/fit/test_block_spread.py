@@ -6,11 +6,19 @@ from pathlib import Path
 import numpy as np
 import pytest
 import statsmodels.api as sm
+from scipy import signal
+from scipy.fft import next_fast_len
 
 from fstats.design import build_design, load_design
 from fstats.fit import SubjectGLM
 from fstats.fit.autoregressive import whiten, whitened_rows
-from fstats.fit.block_spread import between_block_variance, block_pieces, block_spread
+from fstats.fit.block_spread import (
+    between_block_variance,
+    block_pieces,
+    block_spread,
+    block_spreads,
+)
+from fstats.fit.covariance import spectral_sandwich
 from fstats.simulate import SimulationSettings, simulate_recording
 
 DESIGN = Path(__file__).resolve().parents[2] / "designs" / "subtract_blocks.yaml"
@@ -179,3 +187,96 @@ def test_pieces_whitened_on_their_support_equal_the_full_filter():
     np.testing.assert_allclose(
         _whiten_pieces(zeroed, coefs, kept), whiten(zeroed, coefs, valid), atol=1e-12
     )
+
+
+def _gain_data(rng, coefs, n_blocks=12):
+    """Blocks with varying gains in AR noise, with gaps and down-weighted rows."""
+    times, onsets, column = _blocks(n_blocks=n_blocks)
+    x = np.column_stack([column, np.ones_like(times), np.cos(np.pi * times / times[-1])])
+    gains = 1.0 + 0.4 * rng.standard_normal(onsets.size)
+    y = block_pieces(column, times, onsets) @ gains + signal.lfilter(
+        [1.0], [1.0, -0.8], rng.standard_normal(times.size)
+    )
+    y[rng.random(times.size) < 0.005] = np.nan
+    betas, white = _main_fit(y, x, coefs)
+    weights = np.where(np.isfinite(white), rng.uniform(0.3, 1.0, times.size), np.nan)
+    weights[rng.random(times.size) < 0.01] = 0.0
+    return times, onsets, x, y, betas, white, weights
+
+
+def test_reusing_the_main_fits_whitened_design_changes_nothing():
+    """Source: scipy.signal.lfilter - a whitened design handed in (filtered here column
+    by column with scipy's direct-form filter and passed as a transposed view of
+    row-major series, as the main fit holds it) gives the block amplitudes, shares and
+    tau² of whitening the design inside block_spreads (FFT convolution for p > 12), to
+    1e-9, with gaps in the flow and zero weights; a design of the wrong shape is refused."""
+    rng = np.random.default_rng(9)
+    coefs = rng.normal(0.0, 0.05, 15)
+    times, onsets, x, y, betas, white, weights = _gain_data(rng, coefs)
+    valid = np.isfinite(y)
+    kept = whitened_rows(valid, coefs.size)
+    taps = np.concatenate([[1.0], -coefs])
+    filtered = signal.lfilter(taps, [1.0], np.where(valid[:, None], x, 0.0), axis=0)
+    handed = np.ascontiguousarray(filtered[kept].T).T
+    args = (y, x, {"a": (0, onsets, betas[0])}, times, coefs, weights, white, FS)
+    ref = block_spreads(*args)["a"]
+    ours = block_spreads(*args, whitened_design=handed)["a"]
+    assert ref.tau2 > 0
+    for field in ("amplitudes", "shares", "tau2"):
+        np.testing.assert_allclose(getattr(ours, field), getattr(ref, field), rtol=1e-9)
+    # the design handed in is the one used: a different third column moves the amplitudes
+    other = handed.copy()
+    other[:, 2] = rng.standard_normal(other.shape[0])
+    moved = block_spreads(*args, whitened_design=other)["a"]
+    assert np.max(np.abs(moved.amplitudes - ref.amplitudes)) > 1e-6
+    with pytest.raises(ValueError, match="whitened_design"):
+        block_spreads(*args, whitened_design=handed[1:])
+
+
+def test_sandwich_from_rows_equals_the_spectral_sandwich():
+    """Source: fstats.fit.covariance.spectral_sandwich - an internal consistency check
+    (the same formula, not an outside reference): the block-spread sandwich from
+    regressor rows, zero-padded to the FFT length or not, with robust or unit weights,
+    has the covariance of the package's spectral sandwich to 1e-10."""
+    from fstats.fit.block_spread import _sandwich_cov
+
+    rng = np.random.default_rng(10)
+    n, k = 3001, 6
+    x = rng.standard_normal((n, k))
+    x[:, 0] = np.cumsum(rng.standard_normal(n)) / 30.0
+    e = rng.standard_normal(n) + 0.5 * np.cumsum(rng.standard_normal(n)) / 30.0
+    n_fft = next_fast_len(n, real=True)
+    for w in (rng.uniform(0.2, 1.0, n), np.ones(n)):
+        inv = np.linalg.inv(x.T @ (w[:, None] * x))
+        ref = spectral_sandwich(x, e, w, inv, smoothing_bins=4).cov
+        rows = np.ascontiguousarray(x.T)
+        padded = np.zeros((2, k, n_fft))
+        padded[0, :, :n] = rows
+        padded[1, :, :n] = rows * np.sqrt(w)
+        unit = bool(np.all(w == 1.0))
+        plain = _sandwich_cov(
+            rows, None if unit else rows * np.sqrt(w), w * e, inv, smoothing_bins=4
+        )
+        cut = _sandwich_cov(
+            padded[0], None if unit else padded[1], w * e, inv, smoothing_bins=4, n_samples=n
+        )
+        for ours in (plain, cut):
+            np.testing.assert_allclose(ours, ref, rtol=1e-10, atol=1e-12 * np.abs(ref).max())
+
+
+def test_block_windows_are_the_block_pieces():
+    """Source: block_pieces (an internal consistency check of two forms of the same
+    partition) - the windows block_spreads filters, put back on the time base, are
+    block_pieces' columns exactly, with sorted and with shuffled sample times."""
+    from fstats.fit.block_spread import _block_index, _block_windows
+
+    rng = np.random.default_rng(11)
+    times, onsets, column = _blocks()
+    column = column + 0.1
+    for order in (np.arange(times.size), rng.permutation(times.size)):
+        t, c = times[order], column[order]
+        dense = block_pieces(c, t, onsets)
+        scattered = np.zeros_like(dense)
+        for j, (lo, values) in enumerate(_block_windows(c, _block_index(t, onsets), onsets.size)):
+            scattered[lo : lo + values.size, j] = values
+        np.testing.assert_array_equal(scattered, dense)
