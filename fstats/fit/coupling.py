@@ -42,6 +42,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import fft
 
 from fstats.fit.components import VarianceComponent
 
@@ -138,25 +139,61 @@ def band_couplings(
     edges : ndarray, shape (K, 2)
         Lower and upper edge of each kept band, Hz.
     """
-    n = y.size
+    y = np.asarray(y, dtype=float)
+    spectra = _pair_spectra(np.stack([y, np.asarray(x, dtype=float)]))
+    return _band_couplings(spectra, y.size, sfreq_hz, band_edges_hz, min_bins)
+
+
+def _pair_spectra(rows: np.ndarray) -> np.ndarray:
+    """One-sided DFTs of two real series (rows, shape (2, n)) by one complex FFT.
+
+    ``Z = DFT(a/s_a + i b/s_b)`` gives ``A_f = s_a (Z_f + Z*_{-f}) / 2`` and
+    ``B_f = s_b (Z_f - Z*_{-f}) / 2i``; the scales are powers of two near each row's
+    largest value (exact), so neither series drowns in the other's rounding.  One
+    complex FFT costs what two real ones do at fast lengths, and half at lengths with
+    a large prime factor (a gap-closed series' length is whatever it is).
+    """
+    n = rows.shape[1]
+    peak = np.max(np.abs(rows), axis=1)
+    scale = np.exp2(np.round(np.log2(np.where(peak > 0, peak, 1.0))))
+    packed = np.empty(n, dtype=complex)
+    packed.real = rows[0] / scale[0]
+    packed.imag = rows[1] / scale[1]
+    z = fft.fft(packed)
+    m = n // 2 + 1
+    mirror = np.empty(m, dtype=complex)  # Z*_{-f} for f = 0..m-1
+    mirror[0] = z[0]
+    mirror[1:] = z[n - 1 : n - m : -1]
+    np.conjugate(mirror, out=mirror)
+    head = z[:m]
+    return np.stack([(head + mirror) * (0.5 * scale[0]), (head - mirror) * (-0.5j * scale[1])])
+
+
+def _band_couplings(
+    spectra: np.ndarray, n: int, sfreq_hz: float, band_edges_hz: tuple[float, ...], min_bins: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """:func:`band_couplings` from the spectra of ``y`` and ``x`` (rows, ``n`` samples)."""
     freqs = np.fft.rfftfreq(n, 1.0 / sfreq_hz)
-    ys = np.fft.rfft(y)
-    xs = np.fft.rfft(x)
+    ys, xs = spectra
+    power = xs.real**2 + xs.imag**2  # |X|²
+    cross = ys.real * xs.real + ys.imag * xs.imag  # Re(Y X*)
     nyquist = sfreq_hz / 2.0
     lows = [e for e in band_edges_hz if e < nyquist]
     highs = [*lows[1:], nyquist + 1e-9]
+    # freqs ascend: a band [low, high) without 0 Hz is one index range
+    starts = np.maximum(np.searchsorted(freqs, lows, side="left"), 1)
+    stops = np.searchsorted(freqs, highs, side="left")
     out_h, out_v, out_e = [], [], []
-    for low, high in zip(lows, highs, strict=True):
-        band = (freqs >= low) & (freqs < high) & (freqs > 0)
-        m = int(band.sum())
-        power = float(np.sum(np.abs(xs[band]) ** 2))
-        if m < min_bins or power <= 0:
+    for low, high, a, z in zip(lows, highs, starts, stops, strict=True):
+        m = max(0, int(z - a))
+        total = float(np.sum(power[a:z])) if m else 0.0
+        if m < min_bins or total <= 0:
             continue
-        h = float(np.sum((ys[band] * xs[band].conj()).real) / power)
-        residual = np.abs(ys[band] - h * xs[band]) ** 2
-        spread = float(np.sum(np.abs(xs[band]) ** 2 * residual))
+        h = float(np.sum(cross[a:z]) / total)
+        miss = ys[a:z] - h * xs[a:z]
+        spread = float(np.sum(power[a:z] * (miss.real**2 + miss.imag**2)))
         out_h.append(h)
-        out_v.append(spread / (2.0 * power**2) * (2 * m) / (2 * m - 1))
+        out_v.append(spread / (2.0 * total**2) * (2 * m) / (2 * m - 1))
         out_e.append((low, min(high, nyquist)))
     return np.array(out_h), np.array(out_v), np.array(out_e).reshape(-1, 2)
 
@@ -221,23 +258,46 @@ def coupling_spread(
     y = np.asarray(flow, dtype=float)
     x = np.asarray(design, dtype=float)
     w = np.asarray(weights, dtype=float)
-    ok = np.isfinite(y) & np.all(np.isfinite(x), axis=1) & np.isfinite(w) & (w > 0)
-    root = np.sqrt(w[ok])
-    yw = y[ok] * root
-    xw = x[ok] * root[:, None]
     k = x.shape[1]
-    out = []
+    with np.errstate(invalid="ignore"):
+        ok = np.isfinite(y) & np.isfinite(w) & (w > 0)
+    # rows not used keep their place with weight 0 (no copy of the design), and the
+    # residual series drop them before the FFT; the Gram matrix comes out finite
+    # exactly when the design is finite everywhere, else those rows are dropped first
+    root = np.sqrt(np.where(ok, w, 0.0))
+    xw = x * root[:, None]
     gram = xw.T @ xw
+    gaps = None if ok.all() else ok
+    if not np.all(np.isfinite(gram)):
+        ok &= np.isfinite(x).all(axis=1)
+        root, gaps = np.sqrt(w[ok]), None
+        xw = x[ok]
+        xw *= root[:, None]
+        gram = xw.T @ xw
+        yw = y[ok] * root
+    else:
+        yw = np.where(ok, y, 0.0) * root
     cross = xw.T @ yw
+    out = []
     for j in short_columns:
-        others = [i for i in range(k) if i != j]
+        others = np.delete(np.arange(k), j)
         rhs = np.column_stack([cross[others], gram[others, j]])
         # normal equations (the design is small and the columns are scaled); lstsq on
         # the Gram falls back gracefully when it is singular
         coef = np.linalg.lstsq(gram[np.ix_(others, others)], rhs, rcond=None)[0]
-        ry = yw - xw[:, others] @ coef[:, 0]
-        rx = xw[:, j] - xw[:, others] @ coef[:, 1]
-        h, v, edges = band_couplings(ry, rx, sfreq_hz, band_edges_hz)
+        # residuals of the flow and of the short column on the others, as two rows:
+        # row 0 is the others' fit of the flow, row 1 the short column minus theirs
+        combos = np.zeros((2, k))
+        combos[0, others] = coef[:, 0]
+        combos[1, others] = -coef[:, 1]
+        combos[1, j] = 1.0
+        series = combos @ xw.T
+        np.subtract(yw, series[0], out=series[0])
+        if gaps is not None:
+            series = np.compress(gaps, series, axis=1)
+        h, v, edges = _band_couplings(
+            _pair_spectra(series), series.shape[1], sfreq_hz, band_edges_hz, MIN_BINS
+        )
         if h.size < min_bands:
             continue
         tau2, q = between_band_variance(h, v)
