@@ -351,10 +351,64 @@ class Whitener:
         """
         b = np.concatenate([[1.0], -np.asarray(coefs, dtype=float)])
         transfer = _fft.rfft(b, n=self.n_fft)
-        out = _fft.irfft(self.spectrum * transfer, n=self.n_fft, axis=1)
+        product = self.spectrum * transfer
+        out = _fft.irfft(product, n=self.n_fft, axis=1)
+        self._last = (b, product, out)
         if self.complete:
             return out[:, b.size - 1 : self.n_times]
         return out[:, : self.n_times][:, self.kept(b.size - 1)]
+
+    def kept_spectrum(self, coefs: np.ndarray, *, max_edge: int = 64) -> np.ndarray | None:
+        """DFT of the whitened rows 1.. (the design) on the kept samples, from the last apply.
+
+        Parameters
+        ----------
+        coefs : ndarray, shape (p,)
+            The AR coefficients of the last :meth:`apply` call.
+        max_edge : int, default=64
+            Give up (None) when more than this many circular output samples are not kept.
+
+        Returns
+        -------
+        ndarray, shape (n_series - 1, n_fft // 2 + 1), complex, or None
+            ``Σ_t w_t e^{-2πi f t / n_fft}`` over the kept samples ``w_t`` (t = p..n-1) of
+            each whitened series but the first: the DFT of the kept samples zero-padded to
+            ``n_fft`` and shifted by p samples (a common factor ``e^{-2πi f p / n_fft}`` per
+            frequency).  None without gaps-free data, a matching last apply, or when
+            ``next_fast_len(n - p)`` differs from ``n_fft`` (another frequency grid).
+
+        Notes
+        -----
+        The circular filter output ``c = IDFT(Z B)`` equals the whitened series on the
+        kept samples; the others (the first p and the zero-padding tail) are subtracted
+        from ``Z B`` by their own Fourier sums, which costs a small matrix product
+        instead of a forward FFT of every series.
+        """
+        last = getattr(self, "_last", None)
+        b = np.concatenate([[1.0], -np.asarray(coefs, dtype=float)])
+        if not self.complete or last is None or not np.array_equal(last[0], b):
+            return None
+        p = b.size - 1
+        if _fft.next_fast_len(self.n_times - p, real=True) != self.n_fft:
+            return None
+        edge = np.concatenate([np.arange(p), np.arange(self.n_times, self.n_fft)])
+        if edge.size > max_edge:
+            return None
+        product, out = last[1][1:], last[2][1:]
+        if edge.size == 0:
+            return product.copy()
+        step = np.exp(-2j * np.pi * np.arange(product.shape[1]) / self.n_fft)
+        if edge.size == p:  # powers step**t, t = 0..p-1, by repeated products
+            phases = np.empty((p, step.size), dtype=complex)
+            phases[0] = 1.0
+            for t in range(1, p):
+                np.multiply(phases[t - 1], step, out=phases[t])
+        else:
+            phases = np.exp(-2j * np.pi * np.outer(edge, np.arange(step.size)) / self.n_fft)
+        # in the real view (Re, Im interleaved) the correction is one real matrix product
+        correction = np.ascontiguousarray(out[:, edge]) @ phases.view(np.float64)
+        result = np.subtract(product.view(np.float64), correction, out=correction)
+        return result.view(complex)
 
     def gram(self, coefs: np.ndarray, *, max_dropped: float = 0.1) -> np.ndarray | None:
         """Gram matrix ``W W'`` of the whitened samples ``W = apply(coefs)``, without forming W.

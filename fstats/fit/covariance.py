@@ -106,6 +106,29 @@ def _daniell(values: np.ndarray, half_width: int) -> np.ndarray:
     return out
 
 
+def _leverage(gw: np.ndarray, xtwx_inv: np.ndarray) -> np.ndarray:
+    """``Re(G_f B G_f^H)`` for every frequency f, ``G`` (k, n_freqs) complex, ``B`` SPD (k, k).
+
+    With ``B = L L'`` (Cholesky of the diagonally scaled ``B``) this is ``‖L' G_f‖²``,
+    one triangular product and a sum of squares instead of ``B G`` and an elementwise
+    product; falls back to the direct form when ``B`` is not numerically positive definite.
+    """
+    values = _real_view(gw)  # (k, 2 n_freqs): Re and Im interleaved
+    scale = np.sqrt(np.clip(np.diag(xtwx_inv), 0.0, None))
+    if np.all(scale > 0):
+        try:
+            lower = np.linalg.cholesky(xtwx_inv / np.outer(scale, scale))
+        except np.linalg.LinAlgError:
+            pass
+        else:
+            root = (lower * scale[:, None]).T @ values  # L'D G, (k, 2 n_freqs)
+            root *= root
+            quad = root.sum(axis=0)
+            return quad[0::2] + quad[1::2]
+    quad = np.einsum("kf,kf->f", values, xtwx_inv @ values)
+    return quad[0::2] + quad[1::2]
+
+
 def spectral_sandwich(
     design: np.ndarray,
     residuals: np.ndarray,
@@ -116,6 +139,7 @@ def spectral_sandwich(
     columns: int | None = None,
     bread: np.ndarray | None = None,
     weighted_design: np.ndarray | None = None,
+    design_fft: np.ndarray | None = None,
 ) -> SpectralCovariance:
     """Frequency-domain sandwich covariance of a (prewhitened, weighted) regression.
 
@@ -138,6 +162,10 @@ def spectral_sandwich(
         ``(X̃' diag(ψ') X̃)^-1``.  ``xtwx_inv`` is still used for the leverage.
     weighted_design : ndarray, shape (n, k), optional
         ``√W X̃`` if the caller has it already (saves forming it again).
+    design_fft : ndarray, shape (k, n_fft // 2 + 1), complex, optional
+        ``DFT(X̃)`` on the grid ``n_fft = next_fast_len(n)`` if the caller has it (saves
+        the forward FFT of the design).  It may carry a common unit-modulus factor per
+        frequency (a time shift of every series), to which the sandwich is invariant.
 
     Returns
     -------
@@ -154,15 +182,17 @@ def spectral_sandwich(
     """
     n, k = design.shape
     n_fft = fft.next_fast_len(n, real=True)
-    rows = design.T  # (k, n): the FFTs along contiguous rows are the fast ones
-    if rows.strides[1] != rows.itemsize:
-        rows = np.ascontiguousarray(rows)
     psi = weights * residuals
     side = np.full(n_fft // 2 + 1, 2.0)
     side[0] = 1.0
     if n_fft % 2 == 0:
         side[-1] = 1.0
-    g = fft.rfft(rows, n=n_fft, axis=1)
+    rows = None
+    if design_fft is None or weighted_design is None:
+        rows = design.T  # (k, n): the FFTs along contiguous rows are the fast ones
+        if rows.strides[1] != rows.itemsize:
+            rows = np.ascontiguousarray(rows)
+    g = fft.rfft(rows, n=n_fft, axis=1) if design_fft is None else design_fft
     if weighted_design is not None:
         gw = fft.rfft(weighted_design.T, n=n_fft, axis=1)
     elif np.all(weights == 1.0):
@@ -172,9 +202,7 @@ def spectral_sandwich(
     bread = xtwx_inv if bread is None else bread
     b = bread if columns is None else bread[:, :columns]
     periodogram = np.abs(fft.rfft(psi, n=n_fft)) ** 2 / n
-    gw_real = _real_view(gw)  # Re and Im of G = DFT(√W X̃), interleaved: (k, 2 n_freqs)
-    quad = np.einsum("kf,kf->f", gw_real, xtwx_inv @ gw_real)
-    leverage = (quad[0::2] + quad[1::2]) / n  # G B G^H / n with B real symmetric
+    leverage = _leverage(gw, xtwx_inv) / n
     adjust = np.clip(1.0 - leverage, 0.0, 1.0)
     numer = _daniell(periodogram, smoothing_bins)
     denom = np.maximum(_daniell(adjust, smoothing_bins), 0.1 * (2 * smoothing_bins + 1))

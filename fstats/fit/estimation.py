@@ -10,7 +10,7 @@ from scipy import fft
 from fstats.fit.autoregressive import Whitener, fit_ar, whiten
 from fstats.fit.covariance import SpectralCovariance, spectral_sandwich
 from fstats.fit.ols import gram_rank, ordinary_least_squares
-from fstats.fit.robust import TUKEY_C, NormalEquations, irls_rows
+from fstats.fit.robust import TUKEY_C, NormalEquations, RowsOperator, irls_rows
 
 __all__ = ["METHODS", "ChannelEstimate", "ChannelFitError", "estimate_channel"]
 
@@ -125,12 +125,111 @@ def _whitened_ols(whitener: Whitener, coefs: np.ndarray) -> tuple[np.ndarray, No
     return _solve_joint(white, white @ white.T)
 
 
+def _whitened_normal(whitener: Whitener, coefs: np.ndarray) -> NormalEquations | None:
+    """Factored ``X̃'X̃`` of the whitened design from the stored spectrum (None if unusable)."""
+    gram = whitener.gram(coefs)
+    if gram is None:
+        return None
+    try:
+        return NormalEquations(gram[1:, 1:])
+    except np.linalg.LinAlgError:
+        return None
+
+
 def _solve_joint(rows: np.ndarray, gram: np.ndarray) -> tuple[np.ndarray, NormalEquations]:
     """Least squares of row 0 on the other rows of ``rows`` from their joint Gram matrix."""
     normal = NormalEquations(gram[1:, 1:], rows[1:])
     if normal.cholesky:
         return normal.solve(gram[1:, 0]), normal
     return normal.lstsq(rows[0]), normal
+
+
+#: Output samples per block of the block-Toeplitz FIR filter (:class:`_BlockFilter`).
+_FIR_BLOCK = 64
+
+#: Relative tolerance of the first round's IRLS, whose AR filter is re-estimated anyway.
+_FIRST_ROUND_TOL = 1e-2
+
+#: Later rounds solve their IRLS to this share of the previous round's change (at least
+#: to a tenth of ``tol``): early AR filters are provisional, so their robust fits need
+#: not be exact; the last round is always solved to ``0.1 tol``.
+_ROUND_TOL_SHARE = 1e-3
+
+
+class _BlockFilter:
+    """``numpy.convolve(z, taps, mode="valid")`` as one matrix product, for long z.
+
+    The output is cut into blocks of :data:`_FIR_BLOCK` samples; block m is the
+    banded Toeplitz matrix of the taps times the input window that block needs, so
+    the whole filter is one (blocks × window) @ (window × block) product, which
+    runs at BLAS speed instead of a scalar loop (same sums, rounding aside).
+    """
+
+    def __init__(self, taps: np.ndarray) -> None:
+        taps = np.asarray(taps, dtype=float)
+        self.order = taps.size - 1
+        size = _FIR_BLOCK
+        # toeplitz[r, j] = taps[order + j - r] where 0 <= order + j - r <= order
+        lag = self.order + np.arange(size)[None, :] - np.arange(size + self.order)[:, None]
+        inside = (lag >= 0) & (lag <= self.order)
+        self.toeplitz = np.where(inside, taps[np.clip(lag, 0, self.order)], 0.0)
+
+    def __call__(self, series: np.ndarray) -> np.ndarray:
+        p, size = self.order, _FIR_BLOCK
+        n_out = series.shape[0] - p
+        n_blocks = -(-n_out // size)
+        padded = np.zeros(n_blocks * size + p)
+        padded[: series.shape[0]] = series
+        step = padded.strides[0]
+        windows = np.lib.stride_tricks.as_strided(
+            padded, shape=(n_blocks, size + p), strides=(size * step, step), writeable=False
+        )
+        return (windows @ self.toeplitz).reshape(-1)[:n_out]
+
+
+class _FilteredRows(RowsOperator):
+    """The AR-whitened design of a gap-free recording as an operator, without forming it.
+
+    ``X̃ δ`` is the whitening filter applied to the one series ``X δ`` and ``X̃' v`` is
+    ``X'`` times the adjoint filter applied to ``v`` (a correlation with the taps), so
+    an IRLS step on the whitened rows costs two filtered series instead of whitening
+    every regressor.  Rows are the samples from p on (the first p are dropped, as in
+    :func:`fstats.fit.autoregressive.whiten`).  :meth:`materialize` whitens the rows
+    (once) when a Gram matrix is needed.
+    """
+
+    def __init__(self, xrows: np.ndarray, coefs: np.ndarray, whitener: Whitener) -> None:
+        self.xrows = xrows
+        self.coefs = coefs
+        taps = np.concatenate([[1.0], -np.asarray(coefs, dtype=float)])
+        self.order = taps.size - 1
+        self._forward = _BlockFilter(taps)
+        self._adjoint = _BlockFilter(taps[::-1])
+        self._whitener = whitener
+        self._white = None
+
+    def filter(self, series: np.ndarray) -> np.ndarray:
+        """The whitened series ``(B z)_t`` for t = p..n-1, shape (n - p,)."""
+        return self._forward(series)
+
+    def matvec(self, delta: np.ndarray) -> np.ndarray:
+        return self._forward(self.xrows.T @ delta)
+
+    def rmatvec(self, values: np.ndarray) -> np.ndarray:
+        p = self.order
+        padded = np.zeros(values.shape[0] + 2 * p)
+        padded[p : p + values.shape[0]] = values
+        return self.xrows @ self._adjoint(padded)
+
+    def materialize(self) -> np.ndarray:
+        if self._white is None:
+            self._white = self._whitener.apply(self.coefs)
+        return self._white[1:]
+
+    def whitened(self) -> np.ndarray:
+        """The whitened joint rows ``[ỹ; X̃]``, shape (k + 1, n - p)."""
+        self.materialize()
+        return self._white
 
 
 def estimate_channel(
@@ -229,6 +328,9 @@ def estimate_channel(
     converged = False
     ar = None
     preconditioner = None
+    operator = None
+    white = None
+    inner_tol = max(_FIRST_ROUND_TOL, 0.1 * tol) if method == "ar-irls" else 0.1 * tol
     n_iter = 0
     for step in range(1, max_iter + 1):
         n_iter = step
@@ -238,9 +340,21 @@ def estimate_channel(
         if kept.sum() <= k:
             raise ChannelFitError(f"too few samples left after AR({ar.order}) whitening")
         if method == "ar-irls":
-            white = whitener.apply(ar.coefs)
-            yw, xw = white[0], white[1:]
-            fit = irls_rows(yw, xw, betas, c=tukey_c, tol=0.1 * tol, normal=preconditioner)
+            if complete:  # whiten the regressors only when a Gram matrix needs them
+                operator = _FilteredRows(xrows, ar.coefs, whitener)
+                start = operator.filter(flow0 - fitted0)
+                if preconditioner is None:  # first round: the unweighted whitened Gram
+                    preconditioner = _whitened_normal(whitener, ar.coefs)
+                fit = irls_rows(
+                    None, operator, betas, c=tukey_c, tol=inner_tol, normal=preconditioner,
+                    residuals=start,
+                )  # fmt: skip
+            else:
+                white = whitener.apply(ar.coefs)
+                operator = RowsOperator(white[1:])
+                fit = irls_rows(
+                    white[0], operator, betas, c=tukey_c, tol=inner_tol, normal=preconditioner
+                )
             preconditioner = fit.normal  # the next round's X'WX differs little
             new, weights_w, scale_w = fit.betas, fit.weights, fit.scale
         else:
@@ -250,10 +364,15 @@ def estimate_channel(
             np.linalg.norm(flow0 - new_fitted), 1e-300
         )
         betas, fitted0 = new, new_fitted
-        if change < tol:
+        if change < tol and inner_tol <= 0.1 * tol:
             converged = True
             break
+        if method == "ar-irls":
+            inner_tol = max(0.1 * tol, _ROUND_TOL_SHARE * change)
     if method == "ar-irls":
+        if complete:
+            white = operator.whitened()
+        yw, xw = white[0], white[1:]
         root_rows = xw * np.sqrt(weights_w)
         normal = NormalEquations(root_rows @ root_rows.T, root_rows)
     else:
@@ -288,6 +407,7 @@ def estimate_channel(
             smoothing_bins=bins,
             bread=bread,
             weighted_design=root_rows.T if method == "ar-irls" else None,
+            design_fft=whitener.kept_spectrum(ar.coefs),
         )
         cov = spectral.cov
     fitted = np.where(valid, fitted0, np.nan)

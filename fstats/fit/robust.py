@@ -23,6 +23,7 @@ __all__ = [
     "IRLSResult",
     "irls",
     "irls_rows",
+    "RowsOperator",
 ]
 
 #: Tukey bisquare tuning constant: 95 % asymptotic efficiency at the normal
@@ -339,24 +340,51 @@ def irls(
     )
 
 
+class RowsOperator:
+    """Regressors held as explicit rows, shape (k, n): the operator :func:`irls_rows` uses.
+
+    An operator gives the products an IRLS step needs, ``X δ`` (:meth:`matvec`) and
+    ``X' v`` (:meth:`rmatvec`), and the rows themselves when a Gram matrix must be formed
+    (:meth:`materialize`).  Other implementations can compute the products without
+    holding ``X`` (e.g. a filtered design, see :mod:`fstats.fit.estimation`).
+    """
+
+    def __init__(self, rows: np.ndarray) -> None:
+        self.rows = rows
+
+    def matvec(self, delta: np.ndarray) -> np.ndarray:
+        """``X δ``, shape (n,)."""
+        return self.rows.T @ delta
+
+    def rmatvec(self, values: np.ndarray) -> np.ndarray:
+        """``X' v``, shape (k,)."""
+        return self.rows @ values
+
+    def materialize(self) -> np.ndarray:
+        """The rows, shape (k, n)."""
+        return self.rows
+
+
 def irls_rows(
     response: np.ndarray,
-    rows: np.ndarray,
+    rows: np.ndarray | RowsOperator,
     betas: np.ndarray,
     *,
     c: float = TUKEY_C,
     max_iter: int = 50,
     tol: float = 1e-8,
     normal: NormalEquations | None = None,
+    residuals: np.ndarray | None = None,
 ) -> IRLSResult:
     """The Tukey-bisquare M-estimate of :func:`irls`, regressors as rows, few Gram matrices.
 
     Parameters
     ----------
     response : ndarray, shape (n,)
-        Response values (e.g. prewhitened flow).
-    rows : ndarray, shape (k, n)
-        Regressors as rows (the transposed design; a strided view is fine).
+        Response values (e.g. prewhitened flow); not used when ``residuals`` is given.
+    rows : ndarray, shape (k, n), or RowsOperator
+        Regressors as rows (the transposed design; a strided view is fine), or an
+        operator giving ``X δ`` and ``X' v`` (see :class:`RowsOperator`).
     betas : ndarray, shape (k,)
         Starting coefficients.
     c, max_iter, tol
@@ -364,6 +392,8 @@ def irls_rows(
     normal : NormalEquations, optional
         A factored ``X'WX`` of a closely related problem (e.g. the previous AR round's)
         to take the steps with; by default it is formed at the first step's weights.
+    residuals : ndarray, shape (n,), optional
+        ``response - X betas`` if the caller has it (saves one product).
 
     Returns
     -------
@@ -375,14 +405,20 @@ def irls_rows(
     An IRLS step ``β⁺ = (X'WX)^-1 X'Wy`` is ``β + (X'WX)^-1 X'W e`` with ``e = y - Xβ``.
     Here ``X'WX`` is factored at the first step's weights (or taken from ``normal``)
     and kept while the steps shrink by at least half each time (refactored at the
-    current weights otherwise), so a step costs two
-    matrix-vector products, the MAD and the weights.  The iteration stops at the same
-    fixed point ``X'W e = 0`` (weights and MAD scale recomputed every step) with the same
-    stopping rule, ``||X Δβ|| < tol ||e||``.
+    current weights otherwise), so a step costs two matrix-vector products, the MAD
+    and the weights.  With a kept factor ``N`` the direction ``δ = N^-1 X'W e`` is
+    scaled by the exact line search of the weighted least-squares problem at the
+    current weights, ``α = δ'X'We / ‖√W Xδ‖²`` (``α = 1`` when ``N = X'WX``), so a
+    factor from related weights or a related filter only slows the steps a little.
+    The iteration stops at the same fixed point ``X'W e = 0`` (weights and MAD scale
+    recomputed every step) with the same stopping rule, ``||X Δβ|| < tol ||e||``.
     """
-    n = response.shape[0]
+    op = rows if isinstance(rows, RowsOperator) else RowsOperator(rows)
     betas = np.array(betas, dtype=float)
-    resid = response - rows.T @ betas
+    resid = np.array(residuals, dtype=float) if residuals is not None else None
+    if resid is None:
+        resid = response - op.matvec(betas)
+    n = resid.shape[0]
     refresh = normal is None
     previous = np.inf
     converged = False
@@ -394,8 +430,11 @@ def irls_rows(
         scale = _mad_near(resid, scale)
         if not scale > 0:
             weights = np.ones(n)
-            normal = NormalEquations(rows @ rows.T, rows)
-            betas = normal.solve(rows @ response) if normal.cholesky else normal.lstsq(response)
+            explicit = op.materialize()
+            normal = NormalEquations(explicit @ explicit.T, explicit)
+            target = resid + op.matvec(betas)  # the response
+            betas = normal.solve(explicit @ target) if normal.cholesky else normal.lstsq(target)
+            resid = target - op.matvec(betas)
             converged = True
             break
         weights = resid * (1.0 / (scale * c))  # bisquare weights, fewer passes
@@ -403,11 +442,22 @@ def irls_rows(
         np.subtract(1.0, weights, out=weights)
         np.maximum(weights, 0.0, out=weights)
         weights *= weights
+        fresh = refresh
         if refresh:
-            root_rows = rows * np.sqrt(weights)
+            explicit = op.materialize()
+            root_rows = explicit * np.sqrt(weights)
             normal = NormalEquations(root_rows @ root_rows.T, root_rows)
-        delta = normal.solve(rows @ (weights * resid))
-        change = rows.T @ delta
+        weighted = weights * resid
+        gradient = op.rmatvec(weighted)
+        delta = normal.solve(gradient)
+        change = op.matvec(delta)
+        if not fresh:  # exact line search at the current weights (1 for a fresh factor)
+            curvature = float(np.dot(weights * change, change))
+            if curvature > 0:
+                alpha = float(np.dot(gradient, delta)) / curvature
+                if np.isfinite(alpha) and alpha > 0:
+                    delta *= alpha
+                    change *= alpha
         size = np.linalg.norm(change) / max(np.linalg.norm(resid), 1e-300)
         betas = betas + delta
         resid = resid - change
@@ -416,7 +466,6 @@ def irls_rows(
             break
         refresh = size > 0.5 * previous
         previous = size
-    resid = response - rows.T @ betas
     return IRLSResult(
         betas=betas,
         weights=weights,

@@ -118,3 +118,32 @@ def test_whitener_gram_matches_whitened_rows(n, order):
     assert_allclose(gram, white @ white.T, rtol=1e-11, atol=1e-11)
     if order > 5:  # too many samples to correct: the caller is told to whiten instead
         assert whitener.gram(coefs, max_dropped=0.01) is None
+
+
+@pytest.mark.parametrize(("n", "order"), [(600, 19), (600, 0), (599, 4)])
+def test_kept_spectrum_is_the_dft_of_the_whitened_rows(n, order):
+    """Source: scipy.fft.rfft and the DFT shift theorem - the spectrum of the kept whitened
+    samples derived from the stored product (minus the dropped samples' Fourier sums) equals
+    the FFT of the whitened rows zero-padded to the same length, times the phase of a shift
+    by p samples; with gaps, or on another FFT grid, there is none."""
+    from scipy import fft
+
+    rng = np.random.default_rng(n + order)
+    rows = rng.standard_normal((4, n))
+    coefs = rng.uniform(-0.2, 0.2, order)
+    whitener = Whitener(rows, np.ones(n, bool))
+    white = whitener.apply(coefs)
+    spectrum = whitener.kept_spectrum(coefs)
+    if fft.next_fast_len(n - order, real=True) != whitener.n_fft:
+        assert spectrum is None
+        return
+    ref = fft.rfft(white[1:], n=whitener.n_fft, axis=1)
+    shift = np.exp(-2j * np.pi * np.arange(ref.shape[1]) * order / whitener.n_fft)
+    assert_allclose(spectrum, ref * shift, atol=1e-10 * np.abs(ref).max())
+    if order:
+        assert whitener.kept_spectrum(coefs + 0.01) is None  # not the last filter applied
+    valid = np.ones(n, bool)
+    valid[100] = False
+    gappy = Whitener(rows, valid)
+    gappy.apply(coefs)
+    assert gappy.kept_spectrum(coefs) is None

@@ -1,6 +1,7 @@
 """Tests of fstats.fit.covariance (frequency-domain sandwich, Satterthwaite df)."""
 
 import numpy as np
+import pytest
 from numpy.testing import assert_allclose
 from scipy import fft
 
@@ -109,3 +110,25 @@ def test_sandwich_matches_its_closed_form_computed_directly():
     terms = smooth(np.abs(v @ c) ** 2 / denom) * noise * adjust
     dof = (n / n_fft) * 2.0 * terms.sum() ** 2 / np.sum(terms**2)
     assert_allclose(sc.contrast_dof(c), dof, rtol=1e-10)
+
+
+def test_sandwich_is_invariant_to_a_shift_of_the_design_spectrum():
+    """Source: the DFT shift theorem (a delay multiplies every series' DFT by the same
+    unit-modulus factor) - handing in DFT(X̃) times such a factor gives the covariance and
+    the contrast degrees of freedom computed from the rows."""
+    from scipy import fft
+
+    rng = np.random.default_rng(8)
+    n, k = 1200, 4
+    x = np.column_stack([np.ones(n), rng.standard_normal((n, k - 1)).cumsum(axis=0) / 30])
+    e = rng.standard_normal(n)
+    w = rng.uniform(0.5, 1.0, n)
+    inv = np.linalg.inv(x.T @ (w[:, None] * x))
+    n_fft = fft.next_fast_len(n, real=True)
+    phase = np.exp(-2j * np.pi * np.arange(n_fft // 2 + 1) * 7 / n_fft)
+    given = fft.rfft(x.T, n=n_fft, axis=1) * phase
+    ref = spectral_sandwich(x, e, w, inv, smoothing_bins=5)
+    ours = spectral_sandwich(x, e, w, inv, smoothing_bins=5, design_fft=given)
+    assert_allclose(ours.cov, ref.cov, rtol=1e-10)
+    c = np.array([0.0, 1.0, -1.0, 0.0])
+    assert ours.contrast_dof(c) == pytest.approx(ref.contrast_dof(c), rel=1e-10)

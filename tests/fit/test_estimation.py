@@ -157,3 +157,59 @@ def test_ar_irls_reaches_the_bisquare_fixed_point():
     ref = irls(yw, xw, betas=ours.betas, tol=1e-13, max_iter=200)
     assert_allclose(ours.betas, ref.betas, rtol=1e-8)
     assert_allclose(ours.weights[np.isfinite(ours.weights)], ref.weights, atol=1e-8)
+
+
+@pytest.mark.parametrize(("n", "order"), [(36000, 19), (1000, 0), (130, 5), (64, 3), (10, 3)])
+def test_block_filter_equals_numpy_convolve(n, order):
+    """Source: numpy.convolve(z, taps, mode="valid") - the block-Toeplitz matrix product
+    computes the same FIR sums (rounding aside), also for series shorter than one block."""
+    from fstats.fit.estimation import _BlockFilter
+
+    rng = np.random.default_rng(n + order)
+    z = rng.standard_normal(n)
+    taps = np.concatenate([[1.0], rng.standard_normal(order)])
+    assert_allclose(_BlockFilter(taps)(z), np.convolve(z, taps, mode="valid"), atol=1e-12)
+
+
+def test_filtered_design_products_equal_the_whitened_rows():
+    """Source: scipy.signal.lfilter(b, [1], x) (the FIR whitening filter, first p samples
+    dropped as in Cochrane-Orcutt) - the operator's X̃δ and X̃'v, computed from one
+    filtered series each, equal the products with the explicitly whitened design."""
+    from scipy.signal import lfilter
+
+    from fstats.fit.estimation import _FilteredRows
+
+    rng = np.random.default_rng(21)
+    n, k, p = 5000, 6, 19
+    xrows = rng.standard_normal((k, n))
+    coefs = rng.uniform(-0.1, 0.1, p)
+    taps = np.concatenate([[1.0], -coefs])
+    white = lfilter(taps, [1.0], xrows, axis=1)[:, p:]
+    op = _FilteredRows(xrows, coefs, None)
+    delta, v = rng.standard_normal(k), rng.standard_normal(n - p)
+    assert_allclose(op.matvec(delta), white.T @ delta, atol=1e-11)
+    assert_allclose(op.rmatvec(v), white @ v, rtol=1e-11, atol=1e-9)
+
+
+def test_ar_irls_without_gaps_equals_the_whitened_rows_path():
+    """Source: fstats.fit.robust.irls (checked against statsmodels RLM) on rows whitened
+    with scipy.signal.lfilter - the gap-free fit, which never forms the whitened design
+    during its rounds, ends at the bisquare M-estimate of the final whitened regression,
+    with the covariance computed from those rows."""
+    from scipy.signal import lfilter
+
+    x, y = _series(14)
+    y = y.copy()
+    y[np.random.default_rng(15).choice(3000, 20, replace=False)] -= 20.0
+    ours = estimate_channel(y, x, max_ar_order=8, covariance="model", tol=1e-12, max_iter=60)
+    assert ours.converged
+    p = ours.ar_coefs.size
+    taps = np.concatenate([[1.0], -ours.ar_coefs])
+    yw = lfilter(taps, [1.0], y)[p:]
+    xw = lfilter(taps, [1.0], x, axis=0)[p:]
+    ref = irls(yw, xw, betas=ours.betas, tol=1e-13, max_iter=200)
+    assert_allclose(ours.betas, ref.betas, rtol=1e-8)
+    w = ref.weights
+    resid = yw - xw @ ref.betas
+    cov = np.linalg.inv(xw.T @ (w[:, None] * xw)) * np.sum(w * resid**2) / (w.sum() - x.shape[1])
+    assert_allclose(ours.cov, cov, rtol=1e-6)

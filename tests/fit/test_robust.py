@@ -11,6 +11,7 @@ from fstats.fit.robust import (
     MAD_NORMAL,
     TUKEY_C,
     NormalEquations,
+    RowsOperator,
     _mad_near,
     irls,
     irls_rows,
@@ -131,3 +132,26 @@ def test_windowed_mad_equals_full_mad(n):
     assert mad_scale(r) == full
     for factor in (0.97, 1.0, 1.03, 0.5, 2.0):
         assert _mad_near(r, factor * full) == full
+
+
+def test_irls_rows_with_a_foreign_factor_matches_statsmodels_rlm():
+    """Source: statsmodels.api.RLM(y, X, M=TukeyBiweight()).fit(scale_est='mad') - taking
+    every step with the unweighted X'X (scaled by 3, as from another problem) and the
+    exact line search, the rows IRLS still reaches the same M-estimate; through the
+    operator interface (RowsOperator) the result is the same as with the plain rows."""
+    rng = np.random.default_rng(3)
+    n = 800
+    x = np.column_stack([np.ones(n), rng.standard_normal((n, 3))])
+    y = x @ [0.5, -1.0, 2.0, 0.3] + rng.standard_normal(n)
+    y[rng.choice(n, 40, replace=False)] += rng.choice([-12, 12], 40)
+    ref = sm.RLM(y, x, M=TukeyBiweight(c=4.685)).fit(conv="coefs", tol=1e-12, maxiter=500)
+    start = np.linalg.lstsq(x, y, rcond=None)[0]
+    rows = np.ascontiguousarray(x.T)
+    foreign = NormalEquations(3.0 * rows @ rows.T)
+    ours = irls_rows(y, RowsOperator(rows), start, tol=1e-12, max_iter=500, normal=foreign)
+    assert ours.converged
+    assert_allclose(ours.betas, ref.params, rtol=1e-6)
+    assert_allclose(ours.weights, ref.weights, atol=1e-6)
+    plain = irls_rows(y, rows, start, tol=1e-12, max_iter=500)
+    viaop = irls_rows(y, RowsOperator(rows), start, tol=1e-12, max_iter=500)
+    assert_allclose(viaop.betas, plain.betas, rtol=1e-13)
