@@ -57,6 +57,10 @@ class ChannelEstimate:
     spectral : SpectralCovariance or None
         The frequency-domain sandwich behind ``cov`` (None for model-based covariance);
         gives per-contrast Satterthwaite degrees of freedom.
+    whitened_design : ndarray, shape (k, n_used) or None
+        The final whitened regressors on the kept rows, one per row (AR modes), for
+        callers that build on the whitened regression; the subject-level fit drops it
+        after use (it is as large as the design).
     """
 
     betas: np.ndarray
@@ -73,6 +77,7 @@ class ChannelEstimate:
     converged: bool
     ar_order_bic: np.ndarray
     spectral: SpectralCovariance | None = None
+    whitened_design: np.ndarray | None = None
 
     def contrast_dof(self, weights: np.ndarray) -> float:
         """Effective degrees of freedom of a contrast row ``weights`` (shape (k,))."""
@@ -385,6 +390,7 @@ def estimate_channel(
         ew = yw - xw.T @ betas
     else:  # the whitened residuals alone: filter y - Xβ (one series, not the design)
         ew = whiten(flow0 - fitted0, ar.coefs, valid)
+        xw = None
     sum_w = float(weights_w.sum())
     dof = sum_w - k
     if not dof > 0:
@@ -431,6 +437,7 @@ def estimate_channel(
         converged=converged,
         ar_order_bic=ar.bic,
         spectral=spectral,
+        whitened_design=xw,
     )
 
 

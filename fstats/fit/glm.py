@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import logging
 import warnings
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 
 import numpy as np
 import pandas as pd
@@ -391,7 +391,7 @@ class SubjectGLM:
         keep = [
             i for i, kind in enumerate(design.kinds) if not (channel.is_short and kind == "short")
         ]
-        x = values[:, keep]
+        x = values if len(keep) == values.shape[1] else values[:, keep]
         col_names = tuple(design.names[i] for i in keep)
         col_kinds = tuple(design.kinds[i] for i in keep)
         flow = recording.channel_flow(channel.name)
@@ -417,7 +417,8 @@ class SubjectGLM:
             )
         task = np.array([k == "task" for k in col_kinds])
         valid = np.isfinite(est.fitted)
-        baseline = float(np.mean(x[valid][:, ~task] @ est.betas[~task])) if valid.any() else np.nan
+        task_free = x @ np.where(task, 0.0, est.betas)  # the model's task-free prediction
+        baseline = float(np.mean(task_free[valid])) if valid.any() else np.nan
         short = np.array([k == "short" for k in col_kinds])
         short_part = x[:, short] @ est.betas[short] if short.any() else None
         spreads, blocks = (), {}
@@ -428,6 +429,7 @@ class SubjectGLM:
                 blocks = self._block_spreads(recording, design, x, col_names, flow, est, sfreq)
         except (np.linalg.LinAlgError, ValueError) as exc:
             raise ChannelFitError(f"variance components could not be estimated ({exc})") from exc
+        est = replace(est, whitened_design=None)  # as large as the design: not kept
         components = tuple(
             s.component(f"short coupling: {col_names[s.column]}") for s in spreads
         ) + tuple(
@@ -514,4 +516,5 @@ class SubjectGLM:
             sfreq,
             smoothing_hz=self.smoothing_hz,
             covariance=self.covariance,
+            whitened_design=None if est.whitened_design is None else est.whitened_design.T,
         )
