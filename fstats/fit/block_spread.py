@@ -280,7 +280,8 @@ def _sandwich_cov(
     side[0] = 1.0
     if n_fft % 2 == 0:
         side[-1] = 1.0
-    scaled = g.view(np.float64) * np.repeat(np.sqrt(side / n_fft * noise), 2)
+    scaled = g.view(np.float64)
+    scaled *= np.repeat(np.sqrt(side / n_fft * noise), 2)  # in place: g is done with
     cov = xtwx_inv.T @ (scaled @ scaled.T) @ xtwx_inv
     return 0.5 * (cov + cov.T)
 
@@ -453,26 +454,25 @@ def block_spreads(
     bins = max(1, int(round(smoothing_hz * n_fft / sfreq_hz)))
     unit = bool(np.all(w == 1.0))
     we = w * e
+    # every condition's partialled pieces as rows (n_pieces, n_fft), zero beyond the used
+    # rows: one product for all, and the FFT length without a padded copy
+    rows = np.empty((n_pieces, n_fft))
+    rows[:, n_used:] = 0.0
+    body = rows[:, :n_used]
+    np.matmul(-projection.T, xd.T, out=body)
+    for i, (s, v) in enumerate(segments):
+        rows[i, s : s + v.size] += v
+    wrows = rows
+    if covariance == "spectral" and not unit:  # √W times the rows, for the leverage
+        wrows = np.empty_like(rows)
+        wrows[:, n_used:] = 0.0
+        np.multiply(body, root, out=wrows[:, :n_used])
     out, first = {}, 0
     for name, column, estimate, windows in groups:
-        n_blocks = len(windows)
-        sl = slice(first, first + n_blocks)
+        sl = slice(first, first + len(windows))
+        n_blocks, first = len(windows), first + len(windows)
         pieces = segments[sl]
-        # rows (n_blocks, n_fft), zero beyond the used rows: the FFT length, uncopied
-        rows = np.empty((n_blocks, n_fft))
-        rows[:, n_used:] = 0.0
-        partial = rows[:, :n_used]
-        np.matmul(projection[:, sl].T, xd.T, out=partial)
-        np.negative(partial, out=partial)
-        first += n_blocks
-        for i, (s, v) in enumerate(pieces):
-            partial[i, s : s + v.size] += v
-        if unit:
-            wrows = rows
-        else:
-            wrows = np.empty_like(rows)
-            wrows[:, n_used:] = 0.0
-            np.multiply(partial, root, out=wrows[:, :n_used])
+        partial = rows[sl, :n_used]
         # partial' W partial = V'WV - (X̃'WV)' P by Frisch-Waugh-Lovell, from the pieces
         gram = piece_gram[sl, sl] - cross[:, sl].T @ projection[:, sl]
         inv = np.linalg.pinv(0.5 * (gram + gram.T), rcond=1e-10, hermitian=True)
@@ -480,8 +480,8 @@ def block_spreads(
         resid = e - deviations @ partial
         if covariance == "spectral":
             cov = _sandwich_cov(
-                rows,
-                None if unit else wrows,
+                rows[sl],
+                None if unit else wrows[sl],
                 w * resid,
                 inv,
                 smoothing_bins=bins,
