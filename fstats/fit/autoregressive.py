@@ -444,6 +444,11 @@ class Whitener:
         gram = flat @ flat.T
         if p == 0:
             return gram
+        if self.complete:  # dropped: the first p samples and the padding tail's first p
+            dropped = np.concatenate(
+                [np.arange(p), np.arange(self.n_times, min(self.n_fft, self.n_times + p))]
+            )
+            return gram - self._edge_gram(b, dropped)
         # samples of the circular output that are not kept but may be non-zero
         valid = np.zeros(self.n_fft, dtype=bool)
         valid[: self.n_times] = self.valid
@@ -454,10 +459,14 @@ class Whitener:
         dropped = np.flatnonzero(touched & ~kept)
         if dropped.size > max_dropped * self.n_times:
             return None
+        return gram - self._edge_gram(b, dropped)
+
+    def _edge_gram(self, b: np.ndarray, dropped: np.ndarray) -> np.ndarray:
+        """Gram matrix of the circular filter output at the samples ``dropped``."""
         out = np.zeros((self.rows.shape[0], dropped.size))
-        for i in range(p + 1):
+        for i in range(b.size):
             idx = dropped - i
             idx[idx < 0] += self.n_fft
             inside = idx < self.n_times
             out[:, inside] += b[i] * self.rows[:, idx[inside]]
-        return gram - out @ out.T
+        return out @ out.T

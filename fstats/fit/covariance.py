@@ -27,6 +27,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import fft
+from scipy.linalg import blas
 
 __all__ = ["SpectralCovariance", "spectral_sandwich", "satterthwaite_dof"]
 
@@ -121,9 +122,11 @@ def _leverage(gw: np.ndarray, xtwx_inv: np.ndarray) -> np.ndarray:
         except np.linalg.LinAlgError:
             pass
         else:
-            root = (lower * scale[:, None]).T @ values  # L'D G, (k, 2 n_freqs)
+            factor = np.asfortranarray(lower * scale[:, None])  # D L, lower triangular
+            # (L'D G)' = G' D L: the transposed rows are Fortran-ordered, so no copy
+            root = blas.dtrmm(1.0, factor, values.T, side=1, lower=1, overwrite_b=0)
             root *= root
-            quad = root.sum(axis=0)
+            quad = root.sum(axis=1)
             return quad[0::2] + quad[1::2]
     quad = np.einsum("kf,kf->f", values, xtwx_inv @ values)
     return quad[0::2] + quad[1::2]
@@ -140,6 +143,7 @@ def spectral_sandwich(
     bread: np.ndarray | None = None,
     weighted_design: np.ndarray | None = None,
     design_fft: np.ndarray | None = None,
+    weighted_fft: np.ndarray | None = None,
 ) -> SpectralCovariance:
     """Frequency-domain sandwich covariance of a (prewhitened, weighted) regression.
 
@@ -166,6 +170,9 @@ def spectral_sandwich(
         ``DFT(X̃)`` on the grid ``n_fft = next_fast_len(n)`` if the caller has it (saves
         the forward FFT of the design).  It may carry a common unit-modulus factor per
         frequency (a time shift of every series), to which the sandwich is invariant.
+    weighted_fft : ndarray, shape (k, n_fft // 2 + 1), complex, optional
+        ``DFT(√W X̃)`` on the same grid if the caller has it (then ``weighted_design``
+        is not needed).
 
     Returns
     -------
@@ -188,12 +195,14 @@ def spectral_sandwich(
     if n_fft % 2 == 0:
         side[-1] = 1.0
     rows = None
-    if design_fft is None or weighted_design is None:
+    if design_fft is None or (weighted_design is None and weighted_fft is None):
         rows = design.T  # (k, n): the FFTs along contiguous rows are the fast ones
         if rows.strides[1] != rows.itemsize:
             rows = np.ascontiguousarray(rows)
     g = fft.rfft(rows, n=n_fft, axis=1) if design_fft is None else design_fft
-    if weighted_design is not None:
+    if weighted_fft is not None:
+        gw = weighted_fft
+    elif weighted_design is not None:
         gw = fft.rfft(weighted_design.T, n=n_fft, axis=1)
     elif np.all(weights == 1.0):
         gw = g

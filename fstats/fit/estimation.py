@@ -378,7 +378,9 @@ def estimate_channel(
         if complete:
             white = operator.whitened()
         yw, xw = white[0], white[1:]
-        root_rows = xw * np.sqrt(weights_w)
+        # √W X̃ in a buffer zero-padded to the FFT length, for the sandwich's DFT of it
+        padded = np.zeros((xw.shape[0], fft.next_fast_len(xw.shape[1], real=True)))
+        root_rows = np.multiply(xw, np.sqrt(weights_w), out=padded[:, : xw.shape[1]])
         normal = NormalEquations(root_rows @ root_rows.T, root_rows)
     else:
         weights_w = np.ones(int(kept.sum()))
@@ -412,7 +414,7 @@ def estimate_channel(
             xtwx_inv,
             smoothing_bins=bins,
             bread=bread,
-            weighted_design=root_rows.T if method == "ar-irls" else None,
+            weighted_fft=fft.rfft(padded, axis=1) if method == "ar-irls" else None,
             design_fft=whitener.kept_spectrum(ar.coefs),
         )
         cov = spectral.cov

@@ -147,3 +147,15 @@ def test_kept_spectrum_is_the_dft_of_the_whitened_rows(n, order):
     gappy = Whitener(rows, valid)
     gappy.apply(coefs)
     assert gappy.kept_spectrum(coefs) is None
+
+
+@pytest.mark.parametrize("n", [600, 601, 599])
+def test_whitener_gram_without_gaps_matches_whitened_rows(n):
+    """Source: Parseval's theorem (as above) - without gaps only the first p samples and
+    the first p of the zero padding are corrected; the result is W W' of the rows."""
+    rng = np.random.default_rng(n)
+    rows = rng.standard_normal((3, n))
+    coefs = rng.uniform(-0.2, 0.2, 19)
+    whitener = Whitener(rows, np.ones(n, bool))
+    white = whitener.apply(coefs)
+    assert_allclose(whitener.gram(coefs), white @ white.T, rtol=1e-11, atol=1e-11)
