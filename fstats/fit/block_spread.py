@@ -127,20 +127,24 @@ def block_pieces(column: np.ndarray, times_s: np.ndarray, onsets_s: np.ndarray) 
 
 
 def _block_windows(
-    column: np.ndarray, index: np.ndarray, n_blocks: int
+    column: np.ndarray, times_s: np.ndarray, onsets: np.ndarray
 ) -> list[tuple[int, np.ndarray]]:
     """Each block's piece as (its first sample, its values up to its last sample).
 
-    The same pieces as :func:`block_pieces` without the (n, N) array: with sorted
-    times a block's samples are one window of the column; otherwise the window runs
-    from the block's first to its last sample and is zero where another block is.
+    The same pieces as :func:`block_pieces` (``onsets`` sorted and unique) without the
+    (n, N) array: with sorted times a block's samples are one window of the column,
+    from the first sample at or after its onset to the next block's; otherwise the
+    window runs from the block's first to its last sample and is zero where another
+    block is.
     """
-    n = index.size
-    if np.all(index[1:] >= index[:-1]):
-        bounds = np.searchsorted(index, np.arange(n_blocks + 1))
+    times = np.asarray(times_s, dtype=float)
+    n = times.size
+    if np.all(times[1:] >= times[:-1]):
+        bounds = np.concatenate([[0], np.searchsorted(times, onsets[1:], side="left"), [n]])
         return [(int(lo), column[lo:hi]) for lo, hi in zip(bounds[:-1], bounds[1:], strict=True)]
+    index = _block_index(times, onsets)
     windows = []
-    for j in range(n_blocks):
+    for j in range(onsets.size):
         at = np.flatnonzero(index == j)
         lo, hi = (int(at[0]), int(at[-1]) + 1) if at.size else (n, n)
         windows.append((lo, np.where(index[lo:hi] == j, column[lo:hi], 0.0)))
@@ -403,7 +407,7 @@ def block_spreads(
         if onsets.size == 0:
             continue
         col = np.ascontiguousarray(x[:, column])
-        windows = _block_windows(col, _block_index(times_s, onsets), onsets.size)
+        windows = _block_windows(col, times_s, onsets)
         energy = np.array([values @ values for _, values in windows])
         floor = 1e-9 * max(float(energy.max(initial=0.0)), 1e-300)
         windows = [win for win, e in zip(windows, energy, strict=True) if e > floor]

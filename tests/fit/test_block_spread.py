@@ -268,7 +268,7 @@ def test_block_windows_are_the_block_pieces():
     """Source: block_pieces (an internal consistency check of two forms of the same
     partition) - the windows block_spreads filters, put back on the time base, are
     block_pieces' columns exactly, with sorted and with shuffled sample times."""
-    from fstats.fit.block_spread import _block_index, _block_windows
+    from fstats.fit.block_spread import _block_windows
 
     rng = np.random.default_rng(11)
     times, onsets, column = _blocks()
@@ -277,6 +277,6 @@ def test_block_windows_are_the_block_pieces():
         t, c = times[order], column[order]
         dense = block_pieces(c, t, onsets)
         scattered = np.zeros_like(dense)
-        for j, (lo, values) in enumerate(_block_windows(c, _block_index(t, onsets), onsets.size)):
+        for j, (lo, values) in enumerate(_block_windows(c, t, onsets)):
             scattered[lo : lo + values.size, j] = values
         np.testing.assert_array_equal(scattered, dense)
