@@ -7,8 +7,9 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import fft
 
-from fstats.fit.autoregressive import Whitener, fit_ar, whiten
+from fstats.fit.autoregressive import Whitener, fit_ar, whiten, whitened_rows
 from fstats.fit.covariance import SpectralCovariance, spectral_sandwich
+from fstats.fit.filtering import FilteredRows
 from fstats.fit.ols import gram_rank, ordinary_least_squares
 from fstats.fit.robust import TUKEY_C, NormalEquations, RowsOperator, irls_rows
 
@@ -130,17 +131,6 @@ def _whitened_ols(whitener: Whitener, coefs: np.ndarray) -> tuple[np.ndarray, No
     return _solve_joint(white, white @ white.T)
 
 
-def _whitened_normal(whitener: Whitener, coefs: np.ndarray) -> NormalEquations | None:
-    """Factored ``X̃'X̃`` of the whitened design from the stored spectrum (None if unusable)."""
-    gram = whitener.gram(coefs)
-    if gram is None:
-        return None
-    try:
-        return NormalEquations(gram[1:, 1:])
-    except np.linalg.LinAlgError:
-        return None
-
-
 def _solve_joint(rows: np.ndarray, gram: np.ndarray) -> tuple[np.ndarray, NormalEquations]:
     """Least squares of row 0 on the other rows of ``rows`` from their joint Gram matrix."""
     normal = NormalEquations(gram[1:, 1:], rows[1:])
@@ -149,9 +139,6 @@ def _solve_joint(rows: np.ndarray, gram: np.ndarray) -> tuple[np.ndarray, Normal
     return normal.lstsq(rows[0]), normal
 
 
-#: Output samples per block of the block-Toeplitz FIR filter (:class:`_BlockFilter`).
-_FIR_BLOCK = 64
-
 #: Relative tolerance of the first round's IRLS, whose AR filter is re-estimated anyway.
 _FIRST_ROUND_TOL = 1e-2
 
@@ -159,82 +146,6 @@ _FIRST_ROUND_TOL = 1e-2
 #: to a tenth of ``tol``): early AR filters are provisional, so their robust fits need
 #: not be exact; the last round is always solved to ``0.1 tol``.
 _ROUND_TOL_SHARE = 1e-3
-
-
-class _BlockFilter:
-    """``numpy.convolve(z, taps, mode="valid")`` as one matrix product, for long z.
-
-    The output is cut into blocks of :data:`_FIR_BLOCK` samples; block m is the
-    banded Toeplitz matrix of the taps times the input window that block needs, so
-    the whole filter is one (blocks × window) @ (window × block) product, which
-    runs at BLAS speed instead of a scalar loop (same sums, rounding aside).
-    """
-
-    def __init__(self, taps: np.ndarray) -> None:
-        taps = np.asarray(taps, dtype=float)
-        self.order = taps.size - 1
-        size = _FIR_BLOCK
-        # toeplitz[r, j] = taps[order + j - r] where 0 <= order + j - r <= order
-        lag = self.order + np.arange(size)[None, :] - np.arange(size + self.order)[:, None]
-        inside = (lag >= 0) & (lag <= self.order)
-        self.toeplitz = np.where(inside, taps[np.clip(lag, 0, self.order)], 0.0)
-
-    def __call__(self, series: np.ndarray) -> np.ndarray:
-        p, size = self.order, _FIR_BLOCK
-        n_out = series.shape[0] - p
-        n_blocks = -(-n_out // size)
-        padded = np.zeros(n_blocks * size + p)
-        padded[: series.shape[0]] = series
-        step = padded.strides[0]
-        windows = np.lib.stride_tricks.as_strided(
-            padded, shape=(n_blocks, size + p), strides=(size * step, step), writeable=False
-        )
-        return (windows @ self.toeplitz).reshape(-1)[:n_out]
-
-
-class _FilteredRows(RowsOperator):
-    """The AR-whitened design of a gap-free recording as an operator, without forming it.
-
-    ``X̃ δ`` is the whitening filter applied to the one series ``X δ`` and ``X̃' v`` is
-    ``X'`` times the adjoint filter applied to ``v`` (a correlation with the taps), so
-    an IRLS step on the whitened rows costs two filtered series instead of whitening
-    every regressor.  Rows are the samples from p on (the first p are dropped, as in
-    :func:`fstats.fit.autoregressive.whiten`).  :meth:`materialize` whitens the rows
-    (once) when a Gram matrix is needed.
-    """
-
-    def __init__(self, xrows: np.ndarray, coefs: np.ndarray, whitener: Whitener) -> None:
-        self.xrows = xrows
-        self.coefs = coefs
-        taps = np.concatenate([[1.0], -np.asarray(coefs, dtype=float)])
-        self.order = taps.size - 1
-        self._forward = _BlockFilter(taps)
-        self._adjoint = _BlockFilter(taps[::-1])
-        self._whitener = whitener
-        self._white = None
-
-    def filter(self, series: np.ndarray) -> np.ndarray:
-        """The whitened series ``(B z)_t`` for t = p..n-1, shape (n - p,)."""
-        return self._forward(series)
-
-    def matvec(self, delta: np.ndarray) -> np.ndarray:
-        return self._forward(self.xrows.T @ delta)
-
-    def rmatvec(self, values: np.ndarray) -> np.ndarray:
-        p = self.order
-        padded = np.zeros(values.shape[0] + 2 * p)
-        padded[p : p + values.shape[0]] = values
-        return self.xrows @ self._adjoint(padded)
-
-    def materialize(self) -> np.ndarray:
-        if self._white is None:
-            self._white = self._whitener.apply(self.coefs)
-        return self._white[1:]
-
-    def whitened(self) -> np.ndarray:
-        """The whitened joint rows ``[ỹ; X̃]``, shape (k + 1, n - p)."""
-        self.materialize()
-        return self._white
 
 
 def estimate_channel(
@@ -329,7 +240,8 @@ def estimate_channel(
     flow0, xrows = rows[0], rows[1:]  # zero on invalid rows, which then add nothing
     betas, _ = _solve_joint(rows, gram)
     fitted0 = xrows.T @ betas
-    whitener = Whitener(rows, valid)
+    fast = complete and method == "ar-irls"  # no gaps: filter the rows, no FFT whitener
+    whitener = None if fast else Whitener(rows, valid)
     converged = False
     ar = None
     preconditioner = None
@@ -341,15 +253,13 @@ def estimate_channel(
         n_iter = step
         resid = flow0 - fitted0 if complete else np.where(valid, flow0 - fitted0, np.nan)
         ar = fit_ar(resid, max_ar_order, order=ar_order, method=ar_estimator)
-        kept = whitener.kept(ar.order)
+        kept = whitened_rows(valid, ar.order)
         if kept.sum() <= k:
             raise ChannelFitError(f"too few samples left after AR({ar.order}) whitening")
         if method == "ar-irls":
-            if complete:  # whiten the regressors only when a Gram matrix needs them
-                operator = _FilteredRows(xrows, ar.coefs, whitener)
+            if fast:  # whiten the regressors only when a Gram matrix needs them
+                operator = FilteredRows(xrows, ar.coefs)
                 start = operator.filter(flow0 - fitted0)
-                if preconditioner is None:  # first round: the unweighted whitened Gram
-                    preconditioner = _whitened_normal(whitener, ar.coefs)
                 fit = irls_rows(
                     None, operator, betas, c=tukey_c, tol=inner_tol, normal=preconditioner,
                     residuals=start,
@@ -374,13 +284,20 @@ def estimate_channel(
             break
         if method == "ar-irls":
             inner_tol = max(0.1 * tol, _ROUND_TOL_SHARE * change)
+    design_fft = None
     if method == "ar-irls":
-        if complete:
-            white = operator.whitened()
-        yw, xw = white[0], white[1:]
+        n_kept = int(kept.sum())
+        n_fft = fft.next_fast_len(n_kept, real=True)
+        if fast:  # the final filter's rows, in a buffer zero-padded to the FFT length
+            xw = operator.materialize(width=n_fft)
+            yw = operator.filter(flow0)
+            design_fft = fft.rfft(operator.buffer()[:, :n_fft], axis=1)
+        else:
+            yw, xw = white[0], white[1:]
         # √W X̃ in a buffer zero-padded to the FFT length, for the sandwich's DFT of it
-        padded = np.zeros((xw.shape[0], fft.next_fast_len(xw.shape[1], real=True)))
-        root_rows = np.multiply(xw, np.sqrt(weights_w), out=padded[:, : xw.shape[1]])
+        padded = np.empty((k, n_fft))
+        padded[:, n_kept:] = 0.0
+        root_rows = np.multiply(xw, np.sqrt(weights_w), out=padded[:, :n_kept])
         normal = NormalEquations(root_rows @ root_rows.T, root_rows)
     else:
         weights_w = np.ones(int(kept.sum()))
@@ -415,7 +332,7 @@ def estimate_channel(
             smoothing_bins=bins,
             bread=bread,
             weighted_fft=fft.rfft(padded, axis=1) if method == "ar-irls" else None,
-            design_fft=whitener.kept_spectrum(ar.coefs),
+            design_fft=design_fft if fast else whitener.kept_spectrum(ar.coefs),
         )
         cov = spectral.cov
     fitted = np.where(valid, fitted0, np.nan)

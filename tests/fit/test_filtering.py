@@ -1,0 +1,50 @@
+"""Tests of fstats.fit.filtering (block-Toeplitz FIR whitening and the filtered-design operator)."""
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+from scipy.signal import lfilter
+
+from fstats.fit.filtering import BlockFilter, FilteredRows
+
+
+@pytest.mark.parametrize(("n", "order"), [(36000, 19), (1000, 0), (130, 5), (64, 3), (10, 3)])
+def test_block_filter_equals_numpy_convolve(n, order):
+    """Source: numpy.convolve(z, taps, mode="valid") - the block-Toeplitz matrix product
+    computes the same FIR sums (rounding aside), also for series shorter than one block."""
+    rng = np.random.default_rng(n + order)
+    z = rng.standard_normal(n)
+    taps = np.concatenate([[1.0], rng.standard_normal(order)])
+    assert_allclose(BlockFilter(taps)(z), np.convolve(z, taps, mode="valid"), atol=1e-12)
+
+
+def test_filtered_design_products_equal_the_whitened_rows():
+    """Source: scipy.signal.lfilter(b, [1], x) (the FIR whitening filter, first p samples
+    dropped as in Cochrane-Orcutt) - the operator's X̃δ and X̃'v, computed from one
+    filtered series each, equal the products with the explicitly whitened design."""
+    rng = np.random.default_rng(21)
+    n, k, p = 5000, 6, 19
+    xrows = rng.standard_normal((k, n))
+    coefs = rng.uniform(-0.1, 0.1, p)
+    taps = np.concatenate([[1.0], -coefs])
+    white = lfilter(taps, [1.0], xrows, axis=1)[:, p:]
+    op = FilteredRows(xrows, coefs)
+    delta, v = rng.standard_normal(k), rng.standard_normal(n - p)
+    assert_allclose(op.matvec(delta), white.T @ delta, atol=1e-11)
+    assert_allclose(op.rmatvec(v), white @ v, rtol=1e-11, atol=1e-9)
+
+
+@pytest.mark.parametrize(("n", "order", "width"), [(36000, 19, 36000), (100, 12, 95), (50, 3, 64)])
+def test_filtered_rows_buffer_holds_lfilter_output_then_zeros(n, order, width):
+    """Source: scipy.signal.lfilter(b, [1], x, axis=1) - all rows filtered at once into a
+    zero-padded buffer: the first n - p columns are the FIR output from sample p on, the
+    rest are zero (ready for an FFT of that length)."""
+    rng = np.random.default_rng(n)
+    rows = rng.standard_normal((5, n))
+    taps = np.concatenate([[1.0], rng.uniform(-0.2, 0.2, order)])
+    out = BlockFilter(taps).rows(rows, width=width)
+    assert out.shape == (5, width)
+    assert_allclose(out[:, : n - order], lfilter(taps, [1.0], rows, axis=1)[:, order:], atol=1e-12)
+    assert np.all(out[:, n - order :] == 0.0)
+    with pytest.raises(ValueError, match="shorter"):
+        BlockFilter(taps).rows(rows, width=n - order - 1)
