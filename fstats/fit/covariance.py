@@ -40,9 +40,11 @@ class SpectralCovariance:
     ----------
     cov : ndarray, shape (k, k)
         Coefficient covariance (flow unit squared per regressor unit squared).
-    basis : ndarray, shape (k, n_freqs), complex
-        ``DFT(X̃)`` of each regressor on the one-sided frequency grid, times the
-        one-sided weights' square root (``√(side / n_fft)``).
+    spectrum : ndarray, shape (k, n_freqs), complex
+        ``DFT(X̃)`` of each regressor on the one-sided frequency grid (possibly times a
+        common unit-modulus factor per frequency, which nothing here depends on).
+    side_scale : ndarray, shape (n_freqs,)
+        The one-sided weights' square root ``√(side / n_fft)``.
     bread : ndarray, shape (k, k_out)
         The sandwich's bread ``B`` (its first ``k_out`` columns).
     noise_spectrum : ndarray, shape (n_freqs,)
@@ -61,7 +63,8 @@ class SpectralCovariance:
     """
 
     cov: np.ndarray
-    basis: np.ndarray
+    spectrum: np.ndarray
+    side_scale: np.ndarray
     bread: np.ndarray
     noise_spectrum: np.ndarray
     raw_periodogram: np.ndarray
@@ -71,6 +74,11 @@ class SpectralCovariance:
     bin_ratio: float = 1.0
 
     @property
+    def basis(self) -> np.ndarray:
+        """``DFT(X̃)`` times the one-sided weights' square root, shape (k, n_freqs)."""
+        return self.spectrum * self.side_scale
+
+    @property
     def design_spectrum(self) -> np.ndarray:
         """``DFT(X̃ B)`` times the one-sided weights' square root, shape (n_freqs, k_out)."""
         return self.basis.T @ self.bread
@@ -78,9 +86,9 @@ class SpectralCovariance:
     def contrast_power(self, weights: np.ndarray) -> np.ndarray:
         """``|DFT(X̃ B c)|²`` (one-sided weights included) for contrast rows, shape (n_freqs, q)."""
         combos = self.bread @ np.atleast_2d(np.asarray(weights, dtype=float)).T  # (k, q)
-        values = combos.T @ _real_view(self.basis)  # (q, 2 n_freqs): re, im interleaved
+        values = combos.T @ _real_view(self.spectrum)  # (q, 2 n_freqs): re, im interleaved
         values = values.reshape(values.shape[0], -1, 2)
-        return np.einsum("qfc,qfc->fq", values, values)
+        return np.einsum("qfc,qfc->fq", values, values) * (self.side_scale**2)[:, None]
 
     def contrast_dof(self, weights: np.ndarray) -> float | np.ndarray:
         """Satterthwaite df of ``c'β̂``: ``weights`` shape (k,) → float, (q, k) → (q,)."""
@@ -216,14 +224,15 @@ def spectral_sandwich(
     numer = _daniell(periodogram, smoothing_bins)
     denom = np.maximum(_daniell(adjust, smoothing_bins), 0.1 * (2 * smoothing_bins + 1))
     noise = numer / denom
-    basis = g * np.sqrt(side / n_fft)
-    scaled = _real_view(basis) * np.repeat(np.sqrt(noise), 2)
+    side_scale = np.sqrt(side / n_fft)
+    scaled = _real_view(g) * np.repeat(side_scale * np.sqrt(noise), 2)
     meat = scaled @ scaled.T  # Re(Σ_f V^H V Ŝ) before the bread: Re·Re + Im·Im
     cov = b.T @ meat @ b
     cov = 0.5 * (cov + cov.T)
     return SpectralCovariance(
         cov=cov,
-        basis=basis,
+        spectrum=g,
+        side_scale=side_scale,
         bread=b,
         noise_spectrum=noise,
         raw_periodogram=periodogram,

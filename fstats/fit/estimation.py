@@ -321,9 +321,12 @@ def estimate_channel(
         bins = max(
             1, int(round(smoothing_hz * fft.next_fast_len(yw.shape[0], real=True) / sfreq_hz))
         )
-        bread = xtwx_inv
+        bread, weighted_fft = xtwx_inv, None
         if method == "ar-irls":
-            bread = _bisquare_bread(xw, ew, scale_w, tukey_c, xtwx_inv, normal.norms)
+            weighted_fft = fft.rfft(padded, axis=1)  # DFT(√W X̃); the buffer is free again
+            bread = _bisquare_bread(
+                xw, ew, scale_w, tukey_c, xtwx_inv, normal.norms, work=padded[:, : xw.shape[1]]
+            )
         spectral = spectral_sandwich(
             xw.T,
             ew,
@@ -331,7 +334,7 @@ def estimate_channel(
             xtwx_inv,
             smoothing_bins=bins,
             bread=bread,
-            weighted_fft=fft.rfft(padded, axis=1) if method == "ar-irls" else None,
+            weighted_fft=weighted_fft,
             design_fft=design_fft if fast else whitener.kept_spectrum(ar.coefs),
         )
         cov = spectral.cov
@@ -360,15 +363,17 @@ def estimate_channel(
     )
 
 
-def _bisquare_bread(xw, ew, scale, c, fallback, norms):
+def _bisquare_bread(xw, ew, scale, c, fallback, norms, work=None):
     """``(X̃' diag(ψ'(u)) X̃)^-1`` with ``u = ẽ / s`` and the bisquare ``ψ'`` (Huber sandwich).
 
     ``xw`` holds the whitened regressors as rows, shape (k, n); ``norms`` (k,) scales
-    the columns for the inversion (e.g. the square root of the diagonal of ``X̃'WX̃``).
+    the columns for the inversion (e.g. the square root of the diagonal of ``X̃'WX̃``);
+    ``work`` (k, n), if given, is overwritten with ``X̃ ψ'`` instead of a new array.
     """
     u = ew / scale / c
     dpsi = np.where(np.abs(u) <= 1.0, (1.0 - u * u) * (1.0 - 5.0 * u * u), 0.0)
-    gram = (xw * dpsi) @ xw.T / np.outer(norms, norms)  # ψ' < 0 for 0.45 c < |u| < c: no syrk
+    scaled = np.multiply(xw, dpsi, out=work)
+    gram = scaled @ xw.T / np.outer(norms, norms)  # ψ' < 0 for 0.45 c < |u| < c: no syrk
     try:
         inv = np.linalg.inv(gram)
     except np.linalg.LinAlgError:

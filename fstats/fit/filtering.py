@@ -86,15 +86,21 @@ class BlockFilter:
         if width < n_out:
             raise ValueError(f"width {width} is shorter than the {n_out} filtered samples")
         n_blocks = -(-n_out // BLOCK)
-        padded = np.zeros((k, n_blocks * BLOCK + p))
-        padded[:, :n] = rows
-        s0, s1 = padded.strides
-        windows = np.lib.stride_tricks.as_strided(
-            padded, shape=(k, n_blocks, BLOCK + p), strides=(s0, BLOCK * s1, s1), writeable=False
-        )
         n_room = max(n_blocks, -(-width // BLOCK))  # whole blocks covering the buffer
         out = np.empty((k, n_room, BLOCK))
-        np.matmul(windows, self.toeplitz, out=out[:, :n_blocks])
+        if rows.strides[1] != rows.itemsize:
+            rows = np.ascontiguousarray(rows)
+        whole = n_out // BLOCK  # blocks whose input window lies inside the series
+        if whole:
+            s0, s1 = rows.strides
+            windows = np.lib.stride_tricks.as_strided(
+                rows, shape=(k, whole, BLOCK + p), strides=(s0, BLOCK * s1, s1), writeable=False
+            )
+            np.matmul(windows, self.toeplitz, out=out[:, :whole])
+        if whole < n_blocks:  # the last, partial block: its window runs past the end
+            tail = np.zeros((k, BLOCK + p))
+            tail[:, : n - whole * BLOCK] = rows[:, whole * BLOCK :]
+            out[:, whole] = tail @ self.toeplitz
         flat = out.reshape(k, n_room * BLOCK)
         flat[:, n_out:] = 0.0
         return flat[:, :width]
