@@ -51,17 +51,32 @@ class BlockFilter:
     def __call__(self, series: np.ndarray) -> np.ndarray:
         """Filter one series, shape (n,) → (n - p,)."""
         p = self.order
-        if p + 1 < _DIRECT_BELOW:
+        if p + 1 < _DIRECT_BELOW or series.shape[0] < BLOCK + p:
             return np.convolve(series, self.taps, mode="valid")
+        if series.strides[0] != series.itemsize:
+            series = np.ascontiguousarray(series)
         n_out = series.shape[0] - p
-        n_blocks = -(-n_out // BLOCK)
-        padded = np.zeros(n_blocks * BLOCK + p)
-        padded[: series.shape[0]] = series
-        step = padded.strides[0]
+        whole = n_out // BLOCK  # blocks whose input window lies inside the series
+        out = np.empty(n_out)
+        step = series.strides[0]
         windows = np.lib.stride_tricks.as_strided(
-            padded, shape=(n_blocks, BLOCK + p), strides=(BLOCK * step, step), writeable=False
+            series, shape=(whole, BLOCK + p), strides=(BLOCK * step, step), writeable=False
         )
-        return (windows @ self.toeplitz).reshape(-1)[:n_out]
+        np.matmul(windows, self.toeplitz, out=out[: whole * BLOCK].reshape(whole, BLOCK))
+        if whole * BLOCK < n_out:
+            out[whole * BLOCK :] = np.convolve(series[whole * BLOCK :], self.taps, mode="valid")
+        return out
+
+    def full(self, series: np.ndarray) -> np.ndarray:
+        """``numpy.convolve(series, taps)`` (mode "full"), shape (m,) → (m + p,)."""
+        p, m = self.order, series.shape[0]
+        if m < 2 * p + BLOCK:
+            return np.convolve(series, self.taps)
+        out = np.empty(m + p)
+        out[p:m] = self(series)  # the outputs whose taps all fall inside the series
+        out[:p] = np.convolve(series[:p], self.taps)[:p]
+        out[m:] = np.convolve(series[m - p :], self.taps)[p:]
+        return out
 
     def rows(self, rows: np.ndarray, width: int | None = None) -> np.ndarray:
         """Filter every row of ``rows`` (k, n) into a zero-padded buffer.
@@ -142,10 +157,7 @@ class FilteredRows(RowsOperator):
     def rmatvec(self, values: np.ndarray) -> np.ndarray:
         if self._white is not None:
             return self.materialize() @ values
-        p = self.order
-        padded = np.zeros(values.shape[0] + 2 * p)
-        padded[p : p + values.shape[0]] = values
-        return self.xrows @ self._adjoint(padded)
+        return self.xrows @ self._adjoint.full(values)
 
     def materialize(self, width: int | None = None) -> np.ndarray:
         """The whitened rows, shape (k, n - p) (a view of a buffer ``width`` wide)."""

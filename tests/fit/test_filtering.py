@@ -48,3 +48,13 @@ def test_filtered_rows_buffer_holds_lfilter_output_then_zeros(n, order, width):
     assert np.all(out[:, n - order :] == 0.0)
     with pytest.raises(ValueError, match="shorter"):
         BlockFilter(taps).rows(rows, width=n - order - 1)
+
+
+@pytest.mark.parametrize(("n", "order"), [(36000, 19), (60, 19), (5, 3), (1001, 80)])
+def test_block_filter_full_equals_numpy_convolve_full(n, order):
+    """Source: numpy.convolve(z, taps) (mode "full") - the adjoint filter's full output,
+    the interior from the block product and both ends from short convolutions."""
+    rng = np.random.default_rng(n + 1)
+    z = rng.standard_normal(n)
+    taps = np.concatenate([[1.0], rng.standard_normal(order) * 0.1])
+    assert_allclose(BlockFilter(taps).full(z), np.convolve(z, taps), atol=1e-12)
