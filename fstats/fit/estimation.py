@@ -247,6 +247,7 @@ def estimate_channel(
     preconditioner = None
     operator = None
     white = None
+    previous_change = np.inf
     inner_tol = max(_FIRST_ROUND_TOL, 0.1 * tol) if method == "ar-irls" else 0.1 * tol
     n_iter = 0
     for step in range(1, max_iter + 1):
@@ -283,6 +284,13 @@ def estimate_channel(
             converged = True
             break
         if method == "ar-irls":
+            # the rounds contract geometrically: stop when the changes still to come
+            # (extrapolated from the last two) add up to under half the tolerance
+            ratio = change / previous_change
+            if ratio < 0.5 and change * ratio / (1.0 - ratio) < 0.5 * tol and inner_tol <= tol:
+                converged = True
+                break
+            previous_change = change
             inner_tol = max(0.1 * tol, _ROUND_TOL_SHARE * change)
     design_fft = None
     if method == "ar-irls":
