@@ -31,6 +31,10 @@ from scipy.linalg import blas
 
 __all__ = ["SpectralCovariance", "spectral_sandwich", "satterthwaite_dof"]
 
+#: Frequency ordinates (real and imaginary parts counted apart) per block of the
+#: leverage and meat products: their temporaries stay small instead of design-sized.
+_CHUNK = 4096
+
 
 @dataclass(frozen=True, eq=False)
 class SpectralCovariance:
@@ -131,10 +135,13 @@ def _leverage(gw: np.ndarray, xtwx_inv: np.ndarray) -> np.ndarray:
             pass
         else:
             factor = np.asfortranarray(lower * scale[:, None])  # D L, lower triangular
-            # (L'D G)' = G' D L: the transposed rows are Fortran-ordered, so no copy
-            root = blas.dtrmm(1.0, factor, values.T, side=1, lower=1, overwrite_b=0)
-            root *= root
-            quad = root.sum(axis=1)
+            quad = np.empty(values.shape[1])
+            for start in range(0, values.shape[1], _CHUNK):  # small temporaries
+                part = values[:, start : start + _CHUNK]
+                # (L'D G)' = G' D L: the transposed rows are Fortran-ordered, so no copy
+                root = blas.dtrmm(1.0, factor, part.T, side=1, lower=1, overwrite_b=0)
+                root *= root
+                quad[start : start + _CHUNK] = root.sum(axis=1)
             return quad[0::2] + quad[1::2]
     quad = np.einsum("kf,kf->f", values, xtwx_inv @ values)
     return quad[0::2] + quad[1::2]
@@ -225,8 +232,12 @@ def spectral_sandwich(
     denom = np.maximum(_daniell(adjust, smoothing_bins), 0.1 * (2 * smoothing_bins + 1))
     noise = numer / denom
     side_scale = np.sqrt(side / n_fft)
-    scaled = _real_view(g) * np.repeat(side_scale * np.sqrt(noise), 2)
-    meat = scaled @ scaled.T  # Re(Σ_f V^H V Ŝ) before the bread: Re·Re + Im·Im
+    root_noise = np.repeat(side_scale * np.sqrt(noise), 2)
+    spectrum = _real_view(g)
+    meat = np.zeros((k, k))  # Re(Σ_f V^H V Ŝ) before the bread: Re·Re + Im·Im
+    for start in range(0, spectrum.shape[1], _CHUNK):  # small temporaries
+        scaled = spectrum[:, start : start + _CHUNK] * root_noise[start : start + _CHUNK]
+        meat += scaled @ scaled.T
     cov = b.T @ meat @ b
     cov = 0.5 * (cov + cov.T)
     return SpectralCovariance(

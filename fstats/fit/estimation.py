@@ -300,6 +300,10 @@ def estimate_channel(
             xw = operator.materialize(width=n_fft)
             yw = operator.filter(flow0)
             design_fft = fft.rfft(operator.buffer()[:, :n_fft], axis=1)
+            # the raw rows are not needed any more: free them before the covariance
+            # (a fit's peak memory decides how much the allocator maps afresh each time)
+            operator.xrows = None
+            del rows, xrows, flow0
         else:
             yw, xw = white[0], white[1:]
         # √W X̃ in a buffer zero-padded to the FFT length, for the sandwich's DFT of it
@@ -335,6 +339,7 @@ def estimate_channel(
             bread = _bisquare_bread(
                 xw, ew, scale_w, tukey_c, xtwx_inv, normal.norms, work=padded[:, : xw.shape[1]]
             )
+            del padded, root_rows
         spectral = spectral_sandwich(
             xw.T,
             ew,
