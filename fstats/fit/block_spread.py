@@ -47,6 +47,7 @@ from scipy import fft
 
 from fstats.fit.autoregressive import whiten, whitened_rows
 from fstats.fit.components import VarianceComponent
+from fstats.fit.covariance import sandwich_cov_rows
 
 __all__ = [
     "MIN_BLOCKS",
@@ -213,83 +214,6 @@ def between_block_variance(
     centred = m @ b
     noise = float(np.trace(m @ covariance @ m.T))
     return float(max(0.0, (centred @ centred - noise) / np.trace(m @ m.T)))
-
-
-def _running_sum(values: np.ndarray, half_width: int) -> np.ndarray:
-    """Daniell smoother of :mod:`fstats.fit.covariance`: sum over ±half_width bins, reflected."""
-    if half_width == 0:
-        return np.array(values, dtype=float, copy=True)
-    m = min(half_width, values.shape[0] - 1)
-    padded = np.concatenate([values[m:0:-1], values, values[-2 : -m - 2 : -1]])
-    csum = np.concatenate([[0.0], np.cumsum(padded)])
-    out = csum[2 * m + 1 :] - csum[: -2 * m - 1]
-    if m < half_width:  # very short series: scale to the nominal window length
-        out = out * (2 * half_width + 1) / (2 * m + 1)
-    return out
-
-
-def _sandwich_cov(
-    rows: np.ndarray,
-    weighted_rows: np.ndarray | None,
-    psi: np.ndarray,
-    xtwx_inv: np.ndarray,
-    *,
-    smoothing_bins: int,
-    n_samples: int | None = None,
-) -> np.ndarray:
-    """``spectral_sandwich(rows.T, ...).cov`` of :mod:`fstats.fit.covariance`, from rows.
-
-    The same formula with the regressors one per row (the layout the FFTs along time
-    want) and nothing else of the sandwich computed.
-
-    Parameters
-    ----------
-    rows : ndarray, shape (k, m)
-        Prewhitened regressors ``X̃'``, C-contiguous; ``m`` may exceed ``n_samples``
-        (zero padding up to the FFT length, which then saves a copy).
-    weighted_rows : ndarray, shape (k, m) or None
-        ``(√W X̃)'`` (None: unit weights, the same as ``rows``).
-    psi : ndarray, shape (n_samples,)
-        Influence series ``w ẽ`` (flow unit).
-    xtwx_inv : ndarray, shape (k, k)
-        ``(X̃'WX̃)^-1``, also the bread.
-    smoothing_bins : int
-        Half-width of the Daniell smoother, in frequency bins.
-    n_samples : int, optional
-        Number of samples (default ``m``).
-
-    Returns
-    -------
-    ndarray, shape (k, k)
-    """
-    n = rows.shape[1] if n_samples is None else int(n_samples)
-    n_fft = fft.next_fast_len(n, real=True)
-
-    def spectrum(values: np.ndarray) -> np.ndarray:
-        # numpy's FFT: the same transform as scipy's to the last bit here (both are
-        # pocketfft), a little faster for many rows of a fast length
-        if values.shape[-1] == n_fft:
-            return np.fft.rfft(values, axis=-1)
-        return np.fft.rfft(values[..., :n], n=n_fft, axis=-1)
-
-    g = spectrum(rows)
-    gw = g if weighted_rows is None else spectrum(weighted_rows)
-    periodogram = np.abs(spectrum(psi)) ** 2 / n
-    flat = gw.view(np.float64)  # Re and Im interleaved, (k, 2 n_freqs)
-    quad = np.einsum("kf,kf->f", flat, xtwx_inv @ flat)
-    leverage = (quad[0::2] + quad[1::2]) / n
-    adjust = np.clip(1.0 - leverage, 0.0, 1.0)
-    noise = _running_sum(periodogram, smoothing_bins) / np.maximum(
-        _running_sum(adjust, smoothing_bins), 0.1 * (2 * smoothing_bins + 1)
-    )
-    side = np.full(noise.size, 2.0)
-    side[0] = 1.0
-    if n_fft % 2 == 0:
-        side[-1] = 1.0
-    scaled = g.view(np.float64)
-    scaled *= np.repeat(np.sqrt(side / n_fft * noise), 2)  # in place: g is done with
-    cov = xtwx_inv.T @ (scaled @ scaled.T) @ xtwx_inv
-    return 0.5 * (cov + cov.T)
 
 
 def _finite_rows(x: np.ndarray) -> np.ndarray:
@@ -485,7 +409,7 @@ def block_spreads(
         deviations = inv @ (partial @ we)
         resid = e - deviations @ partial
         if covariance == "spectral":
-            cov = _sandwich_cov(
+            cov = sandwich_cov_rows(
                 rows[sl],
                 None if unit else wrows[sl],
                 w * resid,

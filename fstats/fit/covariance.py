@@ -29,7 +29,7 @@ import numpy as np
 from scipy import fft
 from scipy.linalg import blas
 
-__all__ = ["SpectralCovariance", "spectral_sandwich", "satterthwaite_dof"]
+__all__ = ["SpectralCovariance", "spectral_sandwich", "sandwich_cov_rows", "satterthwaite_dof"]
 
 #: Frequency ordinates (real and imaginary parts counted apart) per block of the
 #: leverage and meat products: their temporaries stay small instead of design-sized.
@@ -252,6 +252,69 @@ def spectral_sandwich(
         smoothing_bins=smoothing_bins,
         bin_ratio=n / n_fft,
     )
+
+
+def sandwich_cov_rows(
+    rows: np.ndarray,
+    weighted_rows: np.ndarray | None,
+    psi: np.ndarray,
+    xtwx_inv: np.ndarray,
+    *,
+    smoothing_bins: int,
+    n_samples: int | None = None,
+) -> np.ndarray:
+    """``spectral_sandwich(rows.T, ...).cov``, from rows, with nothing else computed.
+
+    The same formula with the regressors one per row (the layout the FFTs along time
+    want), for callers that need only the covariance (the block amplitudes of
+    :mod:`fstats.fit.block_spread`).
+
+    Parameters
+    ----------
+    rows : ndarray, shape (k, m)
+        Prewhitened regressors ``X̃'``, C-contiguous; ``m`` may exceed ``n_samples``
+        (zero padding up to the FFT length, which then saves a copy).
+    weighted_rows : ndarray, shape (k, m) or None
+        ``(√W X̃)'`` (None: unit weights, the same as ``rows``).
+    psi : ndarray, shape (n_samples,)
+        Influence series ``w ẽ`` (flow unit).
+    xtwx_inv : ndarray, shape (k, k)
+        ``(X̃'WX̃)^-1``, also the bread.
+    smoothing_bins : int
+        Half-width of the Daniell smoother, in frequency bins.
+    n_samples : int, optional
+        Number of samples (default ``m``).
+
+    Returns
+    -------
+    ndarray, shape (k, k)
+    """
+    n = rows.shape[1] if n_samples is None else int(n_samples)
+    n_fft = fft.next_fast_len(n, real=True)
+
+    def spectrum(values: np.ndarray) -> np.ndarray:
+        # numpy's FFT: the same transform as scipy's to the last bit here (both are
+        # pocketfft), a little faster for many rows of a fast length
+        if values.shape[-1] == n_fft:
+            return np.fft.rfft(values, axis=-1)
+        return np.fft.rfft(values[..., :n], n=n_fft, axis=-1)
+
+    g = spectrum(rows)
+    gw = g if weighted_rows is None else spectrum(weighted_rows)
+    periodogram = np.abs(spectrum(psi)) ** 2 / n
+    leverage = _leverage(gw, xtwx_inv) / n
+    adjust = np.clip(1.0 - leverage, 0.0, 1.0)
+    noise = _daniell(periodogram, smoothing_bins) / np.maximum(
+        _daniell(adjust, smoothing_bins), 0.1 * (2 * smoothing_bins + 1)
+    )
+    side = np.full(noise.size, 2.0)
+    side[0] = 1.0
+    if n_fft % 2 == 0:
+        side[-1] = 1.0
+    scaled = g.view(np.float64)
+    scaled *= np.repeat(np.sqrt(side / n_fft * noise), 2)  # in place: g is done with
+    cov = xtwx_inv.T @ (scaled @ scaled.T) @ xtwx_inv
+    return 0.5 * (cov + cov.T)
 
 
 def satterthwaite_dof(spectral: SpectralCovariance, contrast: np.ndarray) -> np.ndarray | float:

@@ -238,7 +238,7 @@ def test_sandwich_from_rows_equals_the_spectral_sandwich():
     (the same formula, not an outside reference): the block-spread sandwich from
     regressor rows, zero-padded to the FFT length or not, with robust or unit weights,
     has the covariance of the package's spectral sandwich to 1e-10."""
-    from fstats.fit.block_spread import _sandwich_cov
+    from fstats.fit.covariance import sandwich_cov_rows as _sandwich_cov
 
     rng = np.random.default_rng(10)
     n, k = 3001, 6
