@@ -184,7 +184,10 @@ def estimate_channel(
     max_iter : int, default=10
         Largest number of AR re-estimation rounds.
     tol : float, default=1e-5
-        Stop when the fitted values change by less than ``tol`` times the residual norm.
+        Stop when the fitted values change by less than ``tol`` times the residual norm
+        from one AR round to the next (AR-IRLS also stops when the changes still to
+        come, extrapolated geometrically from the last two rounds, add up to less than
+        ``tol / 2``; its last round's IRLS is always solved to ``0.1 tol``).
     tukey_c : float, default=4.685
         Bisquare tuning constant.
 
@@ -208,6 +211,13 @@ def estimate_channel(
     the frequency-domain sandwich of :mod:`fstats.fit.covariance` instead; for
     AR-IRLS its bread is ``(X̃' diag(ψ'(u)) X̃)^-1`` with the bisquare derivative ψ'
     (Huber's M-estimator sandwich), and its meat the spectrum of ``ψ = w ẽ``.
+
+    Without missing samples, AR-IRLS never whitens the whole design during its rounds:
+    round 1 whitens it once (block-Toeplitz FIR, :mod:`fstats.fit.filtering`) to
+    factor ``X̃'WX̃``, later rounds take their IRLS steps through the filtered-design
+    operator with the previous factor and an exact line search, and the final filter's
+    rows are formed once for the covariance.  Early rounds solve their IRLS loosely
+    (their AR filter is provisional); the path changes, the fixed point does not.
     """
     if method not in METHODS:
         raise ValueError(f"method must be one of {METHODS}, not {method!r}")
@@ -286,8 +296,8 @@ def estimate_channel(
         if method == "ar-irls":
             # the rounds contract geometrically: stop when the changes still to come
             # (extrapolated from the last two) add up to under half the tolerance
-            ratio = change / previous_change
-            if ratio < 0.5 and change * ratio / (1.0 - ratio) < 0.5 * tol and inner_tol <= tol:
+            ratio = change / previous_change  # 0 after the first round: no stop there
+            if 0 < ratio < 0.5 and change * ratio / (1 - ratio) < 0.5 * tol and inner_tol <= tol:
                 converged = True
                 break
             previous_change = change

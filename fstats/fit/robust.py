@@ -366,7 +366,7 @@ class RowsOperator:
 
 
 def irls_rows(
-    response: np.ndarray,
+    response: np.ndarray | None,
     rows: np.ndarray | RowsOperator,
     betas: np.ndarray,
     *,
@@ -380,8 +380,8 @@ def irls_rows(
 
     Parameters
     ----------
-    response : ndarray, shape (n,)
-        Response values (e.g. prewhitened flow); not used when ``residuals`` is given.
+    response : ndarray, shape (n,), or None
+        Response values (e.g. prewhitened flow); may be None when ``residuals`` is given.
     rows : ndarray, shape (k, n), or RowsOperator
         Regressors as rows (the transposed design; a strided view is fine), or an
         operator giving ``X δ`` and ``X' v`` (see :class:`RowsOperator`).
