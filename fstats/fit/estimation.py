@@ -87,11 +87,15 @@ class ChannelEstimate:
         return self.spectral.contrast_dof(weights)
 
 
-def _prepare(flow: np.ndarray, design: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _prepare(
+    flow: np.ndarray, design: np.ndarray, *, rows_if_complete: bool = True
+) -> tuple[np.ndarray, np.ndarray | None, np.ndarray]:
     """Valid rows, the joint series ``[y; X']`` as rows (zero on invalid rows), their Gram.
 
-    Raises :class:`ChannelFitError` for all-NaN or constant flow, too few samples and a
-    rank-deficient design (rank from the column-scaled Gram, as ``design_rank``).
+    With ``rows_if_complete=False`` and no missing samples the rows are not formed (None)
+    and the Gram comes from the design as it is.  Raises :class:`ChannelFitError` for
+    all-NaN or constant flow, too few samples and a rank-deficient design (rank from the
+    column-scaled Gram, as ``design_rank``).
     """
     valid = np.isfinite(flow)
     if not np.isfinite(design).all():
@@ -104,17 +108,32 @@ def _prepare(flow: np.ndarray, design: np.ndarray) -> tuple[np.ndarray, np.ndarr
         raise ChannelFitError(f"{n_valid} valid samples for {k} regressors")
     if np.ptp(flow[valid]) == 0:
         raise ChannelFitError("constant flow (zero variance)")
-    rows = np.empty((k + 1, flow.shape[0]))
-    rows[0] = flow
-    for start in range(0, flow.shape[0], 4096):  # transpose in cache-sized blocks
-        rows[1:, start : start + 4096] = design[start : start + 4096].T
-    if n_valid < flow.shape[0]:
-        rows[:, ~valid] = 0.0
-    gram = rows @ rows.T
+    if n_valid == flow.shape[0] and not rows_if_complete:
+        gram = np.empty((k + 1, k + 1))
+        gram[1:, 1:] = design.T @ design
+        gram[1:, 0] = gram[0, 1:] = design.T @ flow
+        gram[0, 0] = flow @ flow
+        rows = None
+    else:
+        rows, gram = _joint_rows(flow, design, valid)
     rank = gram_rank(gram[1:, 1:])
     if rank < k:
         raise ChannelFitError(f"design is rank deficient (rank {rank} < {k} columns)")
     return valid, rows, gram
+
+
+def _joint_rows(
+    flow: np.ndarray, design: np.ndarray, valid: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """``[y; X']`` as rows, zero on invalid samples, and its Gram matrix."""
+    k = design.shape[1]
+    rows = np.empty((k + 1, flow.shape[0]))
+    rows[0] = flow
+    for start in range(0, flow.shape[0], 4096):  # transpose in cache-sized blocks
+        rows[1:, start : start + 4096] = design[start : start + 4096].T
+    if not valid.all():
+        rows[:, ~valid] = 0.0
+    return rows, rows @ rows.T
 
 
 def _whitened_ols(whitener: Whitener, coefs: np.ndarray) -> tuple[np.ndarray, NormalEquations]:
@@ -223,7 +242,7 @@ def estimate_channel(
         raise ValueError(f"method must be one of {METHODS}, not {method!r}")
     flow = np.asarray(flow, dtype=float)
     design = np.asarray(design, dtype=float)
-    valid, rows, gram = _prepare(flow, design)
+    valid, rows, gram = _prepare(flow, design, rows_if_complete=method != "ar-irls")
     n_times, k = design.shape
     nan = np.full(n_times, np.nan)
     if method == "ols":
@@ -247,10 +266,22 @@ def estimate_channel(
             ar_order_bic=np.zeros(0),
         )
     complete = bool(valid.all())
-    flow0, xrows = rows[0], rows[1:]  # zero on invalid rows, which then add nothing
-    betas, _ = _solve_joint(rows, gram)
-    fitted0 = xrows.T @ betas
-    fast = complete and method == "ar-irls"  # no gaps: filter the rows, no FFT whitener
+    fast = rows is None  # AR-IRLS without gaps: filter the design, no FFT whitener
+    try:
+        normal0 = NormalEquations(gram[1:, 1:])
+    except np.linalg.LinAlgError:  # ill-conditioned: least squares from the rows
+        if fast:
+            rows, gram = _joint_rows(flow, design, valid)
+            fast = False
+        betas, _ = _solve_joint(rows, gram)
+    else:
+        betas = normal0.solve(gram[1:, 0])
+    if fast:
+        flow0, xrows = flow, design.T  # (k, n) view of the design, not a copy
+        fitted0 = design @ betas
+    else:
+        flow0, xrows = rows[0], rows[1:]  # zero on invalid rows, which then add nothing
+        fitted0 = xrows.T @ betas
     whitener = None if fast else Whitener(rows, valid)
     converged = False
     ar = None
@@ -269,7 +300,7 @@ def estimate_channel(
             raise ChannelFitError(f"too few samples left after AR({ar.order}) whitening")
         if method == "ar-irls":
             if fast:  # whiten the regressors only when a Gram matrix needs them
-                operator = FilteredRows(xrows, ar.coefs)
+                operator = FilteredRows(design, ar.coefs)
                 start = operator.filter(flow0 - fitted0)
                 fit = irls_rows(
                     None, operator, betas, c=tukey_c, tol=inner_tol, normal=preconditioner,
@@ -285,7 +316,7 @@ def estimate_channel(
             new, weights_w, scale_w = fit.betas, fit.weights, fit.scale
         else:
             new, normal = _whitened_ols(whitener, ar.coefs)
-        new_fitted = xrows.T @ new
+        new_fitted = design @ new if fast else xrows.T @ new
         change = np.linalg.norm(new_fitted - fitted0) / max(
             np.linalg.norm(flow0 - new_fitted), 1e-300
         )
@@ -312,7 +343,7 @@ def estimate_channel(
             design_fft = fft.rfft(operator.buffer()[:, :n_fft], axis=1)
             # the raw rows are not needed any more: free them before the covariance
             # (a fit's peak memory decides how much the allocator maps afresh each time)
-            operator.xrows = None
+            operator.design = None
             del rows, xrows, flow0
         else:
             yw, xw = white[0], white[1:]

@@ -120,24 +120,62 @@ class BlockFilter:
         flat[:, n_out:] = 0.0
         return flat[:, :width]
 
+    def columns(self, design: np.ndarray, width: int | None = None) -> np.ndarray:
+        """:meth:`rows` for series held as columns: ``design`` (n, k) → buffer (k, width).
+
+        Each block's input window is a contiguous stretch of a C-ordered (n, k) array,
+        so the regressors are filtered straight from the design matrix's own layout,
+        without a transposed copy, into the row layout the FFTs want.
+        """
+        n, k = design.shape
+        p = self.order
+        n_out = n - p
+        width = n_out if width is None else int(width)
+        if width < n_out:
+            raise ValueError(f"width {width} is shorter than the {n_out} filtered samples")
+        if design.strides[1] != design.itemsize or design.strides[0] != k * design.itemsize:
+            design = np.ascontiguousarray(design)
+        n_blocks = -(-n_out // BLOCK)
+        n_room = max(n_blocks, -(-width // BLOCK))
+        out = np.empty((k, n_room, BLOCK))
+        whole = n_out // BLOCK
+        if whole:
+            s0, s1 = design.strides
+            windows = np.lib.stride_tricks.as_strided(
+                design, shape=(whole, k, BLOCK + p), strides=(BLOCK * s0, s1, s0), writeable=False
+            )
+            np.matmul(windows, self.toeplitz, out=out[:, :whole].transpose(1, 0, 2))
+        if whole < n_blocks:
+            tail = np.zeros((k, BLOCK + p))
+            tail[:, : n - whole * BLOCK] = design[whole * BLOCK :].T
+            out[:, whole] = tail @ self.toeplitz
+        flat = out.reshape(k, n_room * BLOCK)
+        flat[:, n_out:] = 0.0
+        return flat[:, :width]
+
 
 class FilteredRows(RowsOperator):
     """The AR-whitened design of a gap-free recording as an operator, without forming it.
 
     ``X̃ δ`` is the whitening filter applied to the one series ``X δ`` and ``X̃' v`` is
     ``X'`` times the adjoint filter (a correlation with the taps) applied to ``v``.
-    :meth:`materialize` whitens the rows (once) when a Gram matrix is needed.
+    :meth:`materialize` whitens the regressors (once) when a Gram matrix is needed.
 
     Parameters
     ----------
-    xrows : ndarray, shape (k, n)
-        The regressors, one per row.
+    design : ndarray, shape (n, k)
+        The regressors as columns (a design matrix), or as rows (k, n) with
+        ``as_rows=True``.
     coefs : ndarray, shape (p,)
         AR coefficients ``a_1..a_p``.
+    as_rows : bool, default=False
+        Whether ``design`` holds the regressors as rows.
     """
 
-    def __init__(self, xrows: np.ndarray, coefs: np.ndarray) -> None:
-        self.xrows = xrows
+    def __init__(self, design: np.ndarray, coefs: np.ndarray, *, as_rows: bool = False) -> None:
+        self.design = design
+        self.as_rows = as_rows
+        self.n_times = design.shape[1] if as_rows else design.shape[0]
         self.coefs = np.asarray(coefs, dtype=float)
         taps = np.concatenate([[1.0], -self.coefs])
         self.order = taps.size - 1
@@ -152,18 +190,21 @@ class FilteredRows(RowsOperator):
     def matvec(self, delta: np.ndarray) -> np.ndarray:
         if self._white is not None:  # formed already: the direct product is cheaper
             return self.materialize().T @ delta
-        return self.forward(self.xrows.T @ delta)
+        raw = self.design.T @ delta if self.as_rows else self.design @ delta
+        return self.forward(raw)
 
     def rmatvec(self, values: np.ndarray) -> np.ndarray:
         if self._white is not None:
             return self.materialize() @ values
-        return self.xrows @ self._adjoint.full(values)
+        adjoint = self._adjoint.full(values)
+        return self.design @ adjoint if self.as_rows else self.design.T @ adjoint
 
     def materialize(self, width: int | None = None) -> np.ndarray:
-        """The whitened rows, shape (k, n - p) (a view of a buffer ``width`` wide)."""
+        """The whitened regressors as rows, shape (k, n - p) (a view of a buffer ``width`` wide)."""
         if self._white is None or (width is not None and self._white.shape[1] < width):
-            self._white = self.forward.rows(self.xrows, width)
-        return self._white[:, : self.xrows.shape[1] - self.order]
+            make = self.forward.rows if self.as_rows else self.forward.columns
+            self._white = make(self.design, width)
+        return self._white[:, : self.n_times - self.order]
 
     def buffer(self) -> np.ndarray:
         """The buffer behind :meth:`materialize` (zero beyond the whitened samples)."""

@@ -28,7 +28,7 @@ def test_filtered_design_products_equal_the_whitened_rows():
     coefs = rng.uniform(-0.1, 0.1, p)
     taps = np.concatenate([[1.0], -coefs])
     white = lfilter(taps, [1.0], xrows, axis=1)[:, p:]
-    op = FilteredRows(xrows, coefs)
+    op = FilteredRows(xrows, coefs, as_rows=True)
     delta, v = rng.standard_normal(k), rng.standard_normal(n - p)
     assert_allclose(op.matvec(delta), white.T @ delta, atol=1e-11)
     assert_allclose(op.rmatvec(v), white @ v, rtol=1e-11, atol=1e-9)
@@ -58,3 +58,23 @@ def test_block_filter_full_equals_numpy_convolve_full(n, order):
     z = rng.standard_normal(n)
     taps = np.concatenate([[1.0], rng.standard_normal(order) * 0.1])
     assert_allclose(BlockFilter(taps).full(z), np.convolve(z, taps), atol=1e-12)
+
+
+def test_filtering_columns_equals_filtering_rows():
+    """Source: scipy.signal.lfilter along the time axis of a design matrix - filtering the
+    regressors straight from their (n, k) columns gives the row buffer of the (k, n) path,
+    and the operator built on columns gives the same products as the one built on rows."""
+    rng = np.random.default_rng(5)
+    n, k, order = 3001, 6, 19
+    design = rng.standard_normal((n, k))
+    coefs = rng.uniform(-0.1, 0.1, order)
+    taps = np.concatenate([[1.0], -coefs])
+    out = BlockFilter(taps).columns(design, width=3000)
+    assert_allclose(out[:, : n - order], lfilter(taps, [1.0], design, axis=0)[order:].T, atol=1e-12)
+    assert np.all(out[:, n - order :] == 0.0)
+    by_columns = FilteredRows(design, coefs)
+    by_rows = FilteredRows(np.ascontiguousarray(design.T), coefs, as_rows=True)
+    delta, v = rng.standard_normal(k), rng.standard_normal(n - order)
+    assert_allclose(by_columns.matvec(delta), by_rows.matvec(delta), atol=1e-12)
+    assert_allclose(by_columns.rmatvec(v), by_rows.rmatvec(v), rtol=1e-12, atol=1e-10)
+    assert_allclose(by_columns.materialize(), by_rows.materialize(), atol=1e-12)
