@@ -155,9 +155,23 @@ def _wait_for_marker(folder, process, timeout_s=240.0):
     return False
 
 
+@pytest.fixture(scope="module")
+def longer_cohort(tmp_path_factory):
+    """Eight simulated subjects of 900 s at 10 Hz: a run long enough to be killed part-way
+    (a fit of the small cohort above finishes between two polls of the kill test)."""
+    from fstats.simulate import SimulationSettings
+    from fstats.simulate.cohort import simulate_cohort
+
+    settings = SimulationSettings(duration_s=900.0, sfreq_hz=10.0)
+    return simulate_cohort(
+        tmp_path_factory.mktemp("longer") / "cohort", n_per_group=4, settings=settings, seed=4
+    )
+
+
 @pytest.mark.slow
-def test_killed_run_resumes_without_recomputing_finished_subjects(tmp_path, cohort):
+def test_killed_run_resumes_without_recomputing_finished_subjects(tmp_path, longer_cohort):
     """Source: common practice - resume after SIGKILL: done markers written last, atomic renames."""
+    cohort, n_subjects = longer_cohort, 8
     study = _study(tmp_path, cohort, workers=1)
     subjects = tmp_path / "out" / "subjects"
     command = [sys.executable, "-m", "fstats", "run", str(study), "--no-reports"]
@@ -184,7 +198,7 @@ def test_killed_run_resumes_without_recomputing_finished_subjects(tmp_path, coho
         except ProcessLookupError:
             pass
     finished = {p.parent.name: p.stat().st_mtime_ns for p in _markers(subjects)}
-    assert 1 <= len(finished) < 4, "the kill must land part-way through the run"
+    assert 1 <= len(finished) < n_subjects, "the kill must land part-way through the run"
 
     rerun = subprocess.run(command, capture_output=True, text=True, timeout=300)
     assert rerun.returncode == 0, rerun.stderr
@@ -193,12 +207,12 @@ def test_killed_run_resumes_without_recomputing_finished_subjects(tmp_path, coho
         assert (subjects / stem / "done.json").stat().st_mtime_ns == mtime
     record = json.loads((tmp_path / "out" / "study.json").read_text())
     assert record["counts"] == {
-        "computed": 4 - len(finished),
+        "computed": n_subjects - len(finished),
         "reused": len(finished),
         "failed": 0,
     }
-    assert len(_markers(subjects)) == 4
-    assert _check_every_file_parses(tmp_path / "out") >= 4 * 3 + 2
+    assert len(_markers(subjects)) == n_subjects
+    assert _check_every_file_parses(tmp_path / "out") >= n_subjects * 3 + 2
 
 
 def test_regroup_reruns_only_the_group_level(tmp_path, cohort):
