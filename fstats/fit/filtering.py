@@ -94,31 +94,7 @@ class BlockFilter:
         ndarray, shape (k, width)
             The filtered rows in columns ``[:n - p]``.
         """
-        k, n = rows.shape
-        p = self.order
-        n_out = n - p
-        width = n_out if width is None else int(width)
-        if width < n_out:
-            raise ValueError(f"width {width} is shorter than the {n_out} filtered samples")
-        n_blocks = -(-n_out // BLOCK)
-        n_room = max(n_blocks, -(-width // BLOCK))  # whole blocks covering the buffer
-        out = np.empty((k, n_room, BLOCK))
-        if rows.strides[1] != rows.itemsize:
-            rows = np.ascontiguousarray(rows)
-        whole = n_out // BLOCK  # blocks whose input window lies inside the series
-        if whole:
-            s0, s1 = rows.strides
-            windows = np.lib.stride_tricks.as_strided(
-                rows, shape=(k, whole, BLOCK + p), strides=(s0, BLOCK * s1, s1), writeable=False
-            )
-            np.matmul(windows, self.toeplitz, out=out[:, :whole])
-        if whole < n_blocks:  # the last, partial block: its window runs past the end
-            tail = np.zeros((k, BLOCK + p))
-            tail[:, : n - whole * BLOCK] = rows[:, whole * BLOCK :]
-            out[:, whole] = tail @ self.toeplitz
-        flat = out.reshape(k, n_room * BLOCK)
-        flat[:, n_out:] = 0.0
-        return flat[:, :width]
+        return self._filter_all(rows, width, as_columns=False)
 
     def columns(self, design: np.ndarray, width: int | None = None) -> np.ndarray:
         """:meth:`rows` for series held as columns: ``design`` (n, k) → buffer (k, width).
@@ -127,27 +103,34 @@ class BlockFilter:
         so the regressors are filtered straight from the design matrix's own layout,
         without a transposed copy, into the row layout the FFTs want.
         """
-        n, k = design.shape
+        return self._filter_all(design, width, as_columns=True)
+
+    def _filter_all(self, values: np.ndarray, width: int | None, *, as_columns: bool):
+        values = np.ascontiguousarray(values)
+        n, k = values.shape if as_columns else values.shape[::-1]
         p = self.order
         n_out = n - p
         width = n_out if width is None else int(width)
         if width < n_out:
             raise ValueError(f"width {width} is shorter than the {n_out} filtered samples")
-        if design.strides[1] != design.itemsize or design.strides[0] != k * design.itemsize:
-            design = np.ascontiguousarray(design)
         n_blocks = -(-n_out // BLOCK)
-        n_room = max(n_blocks, -(-width // BLOCK))
+        n_room = max(n_blocks, -(-width // BLOCK))  # whole blocks covering the buffer
         out = np.empty((k, n_room, BLOCK))
-        whole = n_out // BLOCK
+        whole = n_out // BLOCK  # blocks whose input window lies inside the series
         if whole:
-            s0, s1 = design.strides
+            along, across = values.strides if as_columns else values.strides[::-1]
+            # block m's window: samples m B .. m B + B + p - 1 of every series, (k, B + p)
             windows = np.lib.stride_tricks.as_strided(
-                design, shape=(whole, k, BLOCK + p), strides=(BLOCK * s0, s1, s0), writeable=False
+                values,
+                shape=(whole, k, BLOCK + p),
+                strides=(BLOCK * along, across, along),
+                writeable=False,
             )
             np.matmul(windows, self.toeplitz, out=out[:, :whole].transpose(1, 0, 2))
-        if whole < n_blocks:
+        if whole < n_blocks:  # the last, partial block: its window runs past the end
             tail = np.zeros((k, BLOCK + p))
-            tail[:, : n - whole * BLOCK] = design[whole * BLOCK :].T
+            rest = values[whole * BLOCK :] if as_columns else values[:, whole * BLOCK :].T
+            tail[:, : n - whole * BLOCK] = rest.T
             out[:, whole] = tail @ self.toeplitz
         flat = out.reshape(k, n_room * BLOCK)
         flat[:, n_out:] = 0.0
