@@ -70,7 +70,7 @@ class BlockFilter:
     def full(self, series: np.ndarray) -> np.ndarray:
         """``numpy.convolve(series, taps)`` (mode "full"), shape (m,) → (m + p,)."""
         p, m = self.order, series.shape[0]
-        if m < 2 * p + BLOCK:
+        if p + 1 < _DIRECT_BELOW or m < 2 * p + BLOCK:
             return np.convolve(series, self.taps)
         out = np.empty(m + p)
         out[p:m] = self(series)  # the outputs whose taps all fall inside the series

@@ -50,7 +50,9 @@ def test_filtered_rows_buffer_holds_lfilter_output_then_zeros(n, order, width):
         BlockFilter(taps).rows(rows, width=n - order - 1)
 
 
-@pytest.mark.parametrize(("n", "order"), [(36000, 19), (60, 19), (5, 3), (1001, 80)])
+@pytest.mark.parametrize(
+    ("n", "order"), [(36000, 19), (60, 19), (5, 3), (1001, 80), (1000, 0), (1000, 12)]
+)
 def test_block_filter_full_equals_numpy_convolve_full(n, order):
     """Source: numpy.convolve(z, taps) (mode "full") - the adjoint filter's full output,
     the interior from the block product and both ends from short convolutions."""
