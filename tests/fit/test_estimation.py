@@ -181,3 +181,16 @@ def test_ar_irls_without_gaps_equals_the_whitened_rows_path():
     resid = yw - xw @ ref.betas
     cov = np.linalg.inv(xw.T @ (w[:, None] * xw)) * np.sum(w * resid**2) / (w.sum() - x.shape[1])
     assert_allclose(ours.cov, cov, rtol=1e-6)
+
+
+def test_ar_irls_with_order_zero_is_the_plain_bisquare_fit():
+    """Source: fstats.fit.robust.irls (checked against statsmodels RLM) - with the AR order
+    fixed to 0 nothing is whitened, and the gap-free AR-IRLS fit is the bisquare M-estimate
+    of the raw regression (a filter with one tap must not trip the filtered-design path)."""
+    x, y = _series(16, coefs=())
+    y = y.copy()
+    y[np.random.default_rng(17).choice(3000, 15, replace=False)] += 30.0
+    ours = estimate_channel(y, x, ar_order=0, covariance="model", tol=1e-12, max_iter=60)
+    assert ours.ar_coefs.size == 0
+    ref = irls(y, x, betas=ours.betas, tol=1e-13, max_iter=200)
+    assert_allclose(ours.betas, ref.betas, rtol=1e-8)
