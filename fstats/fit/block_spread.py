@@ -270,6 +270,7 @@ def block_spreads(
     covariance: str = "spectral",
     min_blocks: int = MIN_BLOCKS,
     whitened_design: np.ndarray | None = None,
+    whitened_gram: np.ndarray | None = None,
 ) -> dict[str, BlockSpread]:
     """Between-block variance of several conditions' amplitudes on one channel.
 
@@ -310,6 +311,9 @@ def block_spreads(
         (:func:`fstats.fit.autoregressive.whitened_rows` of the rows where the flow
         and the design are finite), in either memory order; saves whitening the
         design again.  Default: whiten it here.
+    whitened_gram : ndarray, shape (k, k), optional
+        ``X̃'WX̃`` of that whitened design with these weights (the main fit's normal
+        matrix); saves forming it again.  Default: form it here.
 
     Returns
     -------
@@ -374,12 +378,16 @@ def block_spreads(
     # each condition's pieces with every design column partialled out (Frisch-Waugh-
     # Lovell); what is left is its block-to-block pattern, orthogonal to its own column.
     # Conditions are taken one at a time (the others keep one amplitude for all blocks).
-    root = np.sqrt(w)
-    xdw = xd * root[:, None]
     cross = np.column_stack(
         [xd[s : s + v.size].T @ wv for (s, v), wv in zip(segments, weighted, strict=True)]
     )
-    projection = np.linalg.lstsq(xdw.T @ xdw, cross, rcond=None)[0]
+    root = np.sqrt(w)
+    if whitened_gram is None:
+        xdw = xd * root[:, None]
+        whitened_gram = xdw.T @ xdw
+    elif np.shape(whitened_gram) != (k, k):
+        raise ValueError(f"whitened_gram has shape {np.shape(whitened_gram)}, not {(k, k)}")
+    projection = np.linalg.lstsq(whitened_gram, cross, rcond=None)[0]
     n_fft = fft.next_fast_len(n_used, real=True)
     bins = max(1, int(round(smoothing_hz * n_fft / sfreq_hz)))
     unit = bool(np.all(w == 1.0))

@@ -62,6 +62,8 @@ class ChannelEstimate:
         The final whitened regressors on the kept rows, one per row (AR modes), for
         callers that build on the whitened regression; the subject-level fit drops it
         after use (it is as large as the design).
+    whitened_gram : ndarray, shape (k, k) or None
+        ``X̃'WX̃`` of the final whitened regression, robust weights included (AR-IRLS).
     """
 
     betas: np.ndarray
@@ -79,6 +81,7 @@ class ChannelEstimate:
     ar_order_bic: np.ndarray
     spectral: SpectralCovariance | None = None
     whitened_design: np.ndarray | None = None
+    whitened_gram: np.ndarray | None = None
 
     def contrast_dof(self, weights: np.ndarray) -> float:
         """Effective degrees of freedom of a contrast row ``weights`` (shape (k,))."""
@@ -351,7 +354,8 @@ def estimate_channel(
         padded = np.empty((k, n_fft))
         padded[:, n_kept:] = 0.0
         root_rows = np.multiply(xw, np.sqrt(weights_w), out=padded[:, :n_kept])
-        normal = NormalEquations(root_rows @ root_rows.T, root_rows)
+        xtwx = root_rows @ root_rows.T
+        normal = NormalEquations(xtwx, root_rows)
     else:
         weights_w = np.ones(int(kept.sum()))
     xtwx_inv = normal.inverse()
@@ -414,6 +418,7 @@ def estimate_channel(
         ar_order_bic=ar.bic,
         spectral=spectral,
         whitened_design=xw,
+        whitened_gram=xtwx if method == "ar-irls" else None,
     )
 
 

@@ -517,4 +517,5 @@ class SubjectGLM:
             smoothing_hz=self.smoothing_hz,
             covariance=self.covariance,
             whitened_design=None if est.whitened_design is None else est.whitened_design.T,
+            whitened_gram=est.whitened_gram,
         )

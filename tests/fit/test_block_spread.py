@@ -280,3 +280,25 @@ def test_block_windows_are_the_block_pieces():
         for j, (lo, values) in enumerate(_block_windows(c, t, onsets)):
             scattered[lo : lo + values.size, j] = values
         np.testing.assert_array_equal(scattered, dense)
+
+
+def test_handing_in_the_main_fits_weighted_gram_changes_nothing():
+    """Source: numpy - X̃'WX̃ formed from the handed-in whitened design with the weights
+    (numpy.einsum over the kept rows; rows with zero weight add nothing) gives the same
+    block amplitudes and tau² as the Gram formed inside; a wrong shape is refused."""
+    rng = np.random.default_rng(10)
+    coefs = rng.normal(0.0, 0.05, 15)
+    times, onsets, x, y, betas, white, weights = _gain_data(rng, coefs)
+    valid = np.isfinite(y)
+    kept = whitened_rows(valid, coefs.size)
+    taps = np.concatenate([[1.0], -coefs])
+    handed = signal.lfilter(taps, [1.0], np.where(valid[:, None], x, 0.0), axis=0)[kept]
+    w = np.nan_to_num(weights[kept])
+    gram = np.einsum("ti,t,tj->ij", handed, w, handed)
+    args = (y, x, {"a": (0, onsets, betas[0])}, times, coefs, weights, white, FS)
+    ref = block_spreads(*args, whitened_design=handed)["a"]
+    ours = block_spreads(*args, whitened_design=handed, whitened_gram=gram)["a"]
+    for field in ("amplitudes", "shares", "tau2"):
+        np.testing.assert_allclose(getattr(ours, field), getattr(ref, field), rtol=1e-9)
+    with pytest.raises(ValueError, match="whitened_gram"):
+        block_spreads(*args, whitened_design=handed, whitened_gram=gram[1:])
