@@ -153,6 +153,28 @@ def _whitened_ols(whitener: Whitener, coefs: np.ndarray) -> tuple[np.ndarray, No
     return _solve_joint(white, white @ white.T)
 
 
+def _robust_start(
+    flow0: np.ndarray,
+    xrows: np.ndarray,
+    valid: np.ndarray,
+    betas: np.ndarray,
+    normal: NormalEquations,
+    tukey_c: float,
+) -> np.ndarray:
+    """A loose bisquare fit of the raw (unwhitened) regression, to start AR-IRLS from.
+
+    The first AR model is then fitted to residuals in which motion spikes are already
+    down-weighted instead of OLS residuals, which usually saves AR rounds; the AR-IRLS
+    fixed point does not depend on the start.  Steps use the factored OLS Gram.
+    """
+    if valid.all():
+        return irls_rows(flow0, xrows, betas, c=tukey_c, tol=_START_TOL, normal=normal).betas
+    return irls_rows(
+        flow0[valid], np.ascontiguousarray(xrows[:, valid]), betas, c=tukey_c, tol=_START_TOL,
+        normal=normal,
+    ).betas  # fmt: skip
+
+
 def _solve_joint(rows: np.ndarray, gram: np.ndarray) -> tuple[np.ndarray, NormalEquations]:
     """Least squares of row 0 on the other rows of ``rows`` from their joint Gram matrix."""
     normal = NormalEquations(gram[1:, 1:], rows[1:])
@@ -160,6 +182,9 @@ def _solve_joint(rows: np.ndarray, gram: np.ndarray) -> tuple[np.ndarray, Normal
         return normal.solve(gram[1:, 0]), normal
     return normal.lstsq(rows[0]), normal
 
+
+#: Relative tolerance of the robust start (a bisquare fit of the unwhitened regression).
+_START_TOL = 1e-2
 
 #: Relative tolerance of the first round's IRLS, whose AR filter is re-estimated anyway.
 _FIRST_ROUND_TOL = 1e-2
@@ -270,6 +295,7 @@ def estimate_channel(
         )
     complete = bool(valid.all())
     fast = rows is None  # AR-IRLS without gaps: filter the design, no FFT whitener
+    normal0 = None
     try:
         normal0 = NormalEquations(gram[1:, 1:])
     except np.linalg.LinAlgError:  # ill-conditioned: least squares from the rows
@@ -281,10 +307,11 @@ def estimate_channel(
         betas = normal0.solve(gram[1:, 0])
     if fast:
         flow0, xrows = flow, design.T  # (k, n) view of the design, not a copy
-        fitted0 = design @ betas
     else:
         flow0, xrows = rows[0], rows[1:]  # zero on invalid rows, which then add nothing
-        fitted0 = xrows.T @ betas
+    if method == "ar-irls" and normal0 is not None:
+        betas = _robust_start(flow0, xrows, valid, betas, normal0, tukey_c)
+    fitted0 = xrows.T @ betas
     whitener = None if fast else Whitener(rows, valid)
     converged = False
     ar = None
