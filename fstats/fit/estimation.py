@@ -319,7 +319,6 @@ def estimate_channel(
     operator = None
     white = None
     previous_change = np.inf
-    likely_last = False  # the next round is expected to meet the stopping rule
     inner_tol = max(_FIRST_ROUND_TOL, 0.1 * tol) if method == "ar-irls" else 0.1 * tol
     n_iter = 0
     for step in range(1, max_iter + 1):
@@ -332,8 +331,6 @@ def estimate_channel(
         if method == "ar-irls":
             if fast:  # whiten the regressors only when a Gram matrix needs them
                 operator = FilteredRows(design, ar.coefs)
-                if likely_last:  # form the rows now: cheaper steps, and the covariance needs them
-                    operator.materialize(width=fft.next_fast_len(n_times - ar.order, real=True))
                 start = operator.filter(flow0 - fitted0)
                 fit = irls_rows(
                     None, operator, betas, c=tukey_c, tol=inner_tol, normal=preconditioner,
@@ -366,7 +363,6 @@ def estimate_channel(
                 break
             previous_change = change
             inner_tol = max(0.1 * tol, _ROUND_TOL_SHARE * change)
-            likely_last = 0 < ratio < 0.5 and ratio * change < 0.5 * tol
     design_fft = None
     if method == "ar-irls":
         n_kept = int(kept.sum())
