@@ -458,8 +458,15 @@ def _bisquare_bread(xw, ew, scale, c, fallback, norms, work=None):
     """
     u = ew / scale / c
     dpsi = np.where(np.abs(u) <= 1.0, (1.0 - u * u) * (1.0 - 5.0 * u * u), 0.0)
-    scaled = np.multiply(xw, dpsi, out=work)
-    gram = scaled @ xw.T / np.outer(norms, norms)  # ψ' < 0 for 0.45 c < |u| < c: no syrk
+    # ψ' < 0 for 0.45 c < |u| < c (a few per cent of the rows): X̃'ΨX̃ = A'A - N'N with
+    # A = X̃ √ψ'₊ over every row and N = X̃ √(-ψ'₋) over those few, two symmetric products
+    scaled = np.multiply(xw, np.sqrt(np.maximum(dpsi, 0.0)), out=work)
+    gram = scaled @ scaled.T
+    negative = np.flatnonzero(dpsi < 0.0)
+    if negative.size:
+        rows = xw[:, negative] * np.sqrt(-dpsi[negative])
+        gram -= rows @ rows.T
+    gram /= np.outer(norms, norms)
     try:
         inv = np.linalg.inv(gram)
     except np.linalg.LinAlgError:
