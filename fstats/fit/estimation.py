@@ -319,13 +319,18 @@ def estimate_channel(
     operator = None
     white = None
     previous_change = np.inf
+    scale_w = None  # the last round's residual scale (a guess for the next round's MAD)
     inner_tol = max(_FIRST_ROUND_TOL, 0.1 * tol) if method == "ar-irls" else 0.1 * tol
     n_iter = 0
     for step in range(1, max_iter + 1):
         n_iter = step
         resid = flow0 - fitted0 if complete else np.where(valid, flow0 - fitted0, np.nan)
         ar = fit_ar(resid, max_ar_order, order=ar_order, method=ar_estimator)
-        kept = whitened_rows(valid, ar.order)
+        if complete:  # every sample but the first p
+            kept = np.ones(n_times, dtype=bool)
+            kept[: ar.order] = False
+        else:
+            kept = whitened_rows(valid, ar.order)
         if kept.sum() <= k:
             raise ChannelFitError(f"too few samples left after AR({ar.order}) whitening")
         if method == "ar-irls":
@@ -334,14 +339,15 @@ def estimate_channel(
                 start = operator.filter(flow0 - fitted0)
                 fit = irls_rows(
                     None, operator, betas, c=tukey_c, tol=inner_tol, normal=preconditioner,
-                    residuals=start,
+                    residuals=start, scale_guess=scale_w,
                 )  # fmt: skip
             else:
                 white = whitener.apply(ar.coefs)
                 operator = RowsOperator(white[1:])
                 fit = irls_rows(
-                    white[0], operator, betas, c=tukey_c, tol=inner_tol, normal=preconditioner
-                )
+                    white[0], operator, betas, c=tukey_c, tol=inner_tol, normal=preconditioner,
+                    scale_guess=scale_w,
+                )  # fmt: skip
             preconditioner = fit.normal  # the next round's X'WX differs little
             new, weights_w, scale_w = fit.betas, fit.weights, fit.scale
         else:

@@ -375,6 +375,7 @@ def irls_rows(
     tol: float = 1e-8,
     normal: NormalEquations | None = None,
     residuals: np.ndarray | None = None,
+    scale_guess: float | None = None,
 ) -> IRLSResult:
     """The Tukey-bisquare M-estimate of :func:`irls`, regressors as rows, few Gram matrices.
 
@@ -394,6 +395,9 @@ def irls_rows(
         to take the steps with; by default it is formed at the first step's weights.
     residuals : ndarray, shape (n,), optional
         ``response - X betas`` if the caller has it (saves one product).
+    scale_guess : float, optional
+        A residual scale near the first step's MAD (e.g. a related fit's); only makes
+        finding that MAD faster, the value is the same.
 
     Returns
     -------
@@ -424,7 +428,7 @@ def irls_rows(
     converged = False
     weights = np.ones(n)
     n_iter = 0
-    scale = None
+    scale = scale_guess
     for step in range(1, max_iter + 1):
         n_iter = step
         scale = _mad_near(resid, scale)
