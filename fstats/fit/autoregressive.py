@@ -126,9 +126,8 @@ def autocovariance(
         x = x - mean if complete else np.where(valid, x - mean, 0.0)
     n = x.shape[0]
     direct = one_d and max_lag <= _DIRECT_MAX_LAG
-    if direct:  # a few lags of one series: dot products beat two FFTs of length 2n
-        col = x[:, 0]
-        sums = np.array([[col[k:] @ col[: n - k]] for k in range(max_lag + 1)])
+    if direct:  # a few lags of one series: lagged products beat two FFTs of length 2n
+        sums = _lagged_sums(x[:, 0], max_lag)[:, None]
     else:
         n_fft = _fft.next_fast_len(2 * n - 1, real=True)
         spec = _fft.rfft(x, n=n_fft, axis=0)
@@ -147,6 +146,31 @@ def autocovariance(
     with np.errstate(invalid="ignore", divide="ignore"):
         acov = sums / np.where(denom > 0, denom, np.nan)
     return acov[:, 0] if one_d else acov
+
+
+def _lagged_sums(col: np.ndarray, max_lag: int, block: int = 64) -> np.ndarray:
+    """``Σ_t x_t x_{t+k}`` for k = 0..max_lag, as one matrix product over blocks.
+
+    The series (zero-padded) is cut into blocks of ``block`` samples; with Y the
+    windows of ``block + max_lag`` samples starting at each block, ``G = Y[:, :block]' Y``
+    holds every product of a sample with the samples up to ``max_lag`` after it, and
+    the lag-k sum is the sum of G's k-th superdiagonal (the same sums as the dot
+    products ``x[k:] @ x[:n-k]``, rounding aside).
+    """
+    n = col.shape[0]
+    n_blocks = -(-n // block)
+    padded = np.zeros(n_blocks * block + max_lag)
+    padded[:n] = col
+    step = padded.strides[0]
+    windows = np.lib.stride_tricks.as_strided(
+        padded, shape=(n_blocks, block + max_lag), strides=(block * step, step), writeable=False
+    )
+    gram = windows[:, :block].T @ windows  # (block, block + max_lag)
+    s0, s1 = gram.strides
+    diagonals = np.lib.stride_tricks.as_strided(
+        gram, shape=(max_lag + 1, block), strides=(s1, s0 + s1), writeable=False
+    )
+    return diagonals.sum(axis=1)
 
 
 def levinson_durbin(acov: np.ndarray, max_order: int) -> tuple[list[np.ndarray], np.ndarray]:
