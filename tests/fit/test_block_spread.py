@@ -204,6 +204,19 @@ def _gain_data(rng, coefs, n_blocks=12):
     return times, onsets, x, y, betas, white, weights
 
 
+def _handed_in(rng):
+    """block_spreads arguments for simulated gain data, the design whitened with
+    scipy.signal.lfilter on the kept rows (n_kept, k), and the kept rows' weights."""
+    coefs = rng.normal(0.0, 0.05, 15)
+    times, onsets, x, y, betas, white, weights = _gain_data(rng, coefs)
+    valid = np.isfinite(y)
+    kept = whitened_rows(valid, coefs.size)
+    taps = np.concatenate([[1.0], -coefs])
+    handed = signal.lfilter(taps, [1.0], np.where(valid[:, None], x, 0.0), axis=0)[kept]
+    args = (y, x, {"a": (0, onsets, betas[0])}, times, coefs, weights, white, FS)
+    return args, handed, np.nan_to_num(weights[kept])
+
+
 def test_reusing_the_main_fits_whitened_design_changes_nothing():
     """Source: scipy.signal.lfilter - a whitened design handed in (filtered here column
     by column with scipy's direct-form filter and passed as a transposed view of
@@ -211,14 +224,8 @@ def test_reusing_the_main_fits_whitened_design_changes_nothing():
     tau² of whitening the design inside block_spreads (FFT convolution for p > 12), to
     1e-9, with gaps in the flow and zero weights; a design of the wrong shape is refused."""
     rng = np.random.default_rng(9)
-    coefs = rng.normal(0.0, 0.05, 15)
-    times, onsets, x, y, betas, white, weights = _gain_data(rng, coefs)
-    valid = np.isfinite(y)
-    kept = whitened_rows(valid, coefs.size)
-    taps = np.concatenate([[1.0], -coefs])
-    filtered = signal.lfilter(taps, [1.0], np.where(valid[:, None], x, 0.0), axis=0)
-    handed = np.ascontiguousarray(filtered[kept].T).T
-    args = (y, x, {"a": (0, onsets, betas[0])}, times, coefs, weights, white, FS)
+    args, handed, _ = _handed_in(rng)
+    handed = np.ascontiguousarray(handed.T).T
     ref = block_spreads(*args)["a"]
     ours = block_spreads(*args, whitened_design=handed)["a"]
     assert ref.tau2 > 0
@@ -286,16 +293,8 @@ def test_handing_in_the_main_fits_weighted_gram_changes_nothing():
     """Source: numpy - X̃'WX̃ formed from the handed-in whitened design with the weights
     (numpy.einsum over the kept rows; rows with zero weight add nothing) gives the same
     block amplitudes and tau² as the Gram formed inside; a wrong shape is refused."""
-    rng = np.random.default_rng(10)
-    coefs = rng.normal(0.0, 0.05, 15)
-    times, onsets, x, y, betas, white, weights = _gain_data(rng, coefs)
-    valid = np.isfinite(y)
-    kept = whitened_rows(valid, coefs.size)
-    taps = np.concatenate([[1.0], -coefs])
-    handed = signal.lfilter(taps, [1.0], np.where(valid[:, None], x, 0.0), axis=0)[kept]
-    w = np.nan_to_num(weights[kept])
+    args, handed, w = _handed_in(np.random.default_rng(10))
     gram = np.einsum("ti,t,tj->ij", handed, w, handed)
-    args = (y, x, {"a": (0, onsets, betas[0])}, times, coefs, weights, white, FS)
     ref = block_spreads(*args, whitened_design=handed)["a"]
     ours = block_spreads(*args, whitened_design=handed, whitened_gram=gram)["a"]
     for field in ("amplitudes", "shares", "tau2"):
