@@ -460,7 +460,7 @@ def _bisquare_bread(xw, ew, scale, c, fallback, norms, work=None):
 
     ``xw`` holds the whitened regressors as rows, shape (k, n); ``norms`` (k,) scales
     the columns for the inversion (e.g. the square root of the diagonal of ``X̃'WX̃``);
-    ``work`` (k, n), if given, is overwritten with ``X̃ ψ'`` instead of a new array.
+    ``work`` (k, n), if given, is overwritten with ``X̃ √max(ψ', 0)`` instead of a new array.
     """
     u = ew / scale / c
     dpsi = np.where(np.abs(u) <= 1.0, (1.0 - u * u) * (1.0 - 5.0 * u * u), 0.0)

@@ -78,13 +78,17 @@ class BlockFilter:
         out[m:] = np.convolve(series[m - p :], self.taps)[p:]
         return out
 
-    def rows(self, rows: np.ndarray, width: int | None = None) -> np.ndarray:
-        """Filter every row of ``rows`` (k, n) into a zero-padded buffer.
+    def columns(self, design: np.ndarray, width: int | None = None) -> np.ndarray:
+        """Filter every column of ``design`` (n, k) into a zero-padded row buffer (k, width).
+
+        Each block's input window is a contiguous stretch of a C-ordered (n, k) array,
+        so the regressors are filtered straight from the design matrix's own layout,
+        without a transposed copy, into the row layout the FFTs want.
 
         Parameters
         ----------
-        rows : ndarray, shape (k, n)
-            Series, one per row.
+        design : ndarray, shape (n, k)
+            Series, one per column.
         width : int, optional
             Width of the returned buffer (at least n - p; default n - p).  Columns from
             n - p on are zero, so the buffer can go to an FFT of that length as it is.
@@ -92,22 +96,10 @@ class BlockFilter:
         Returns
         -------
         ndarray, shape (k, width)
-            The filtered rows in columns ``[:n - p]``.
+            The filtered series, one per row, in columns ``[:n - p]``.
         """
-        return self._filter_all(rows, width, as_columns=False)
-
-    def columns(self, design: np.ndarray, width: int | None = None) -> np.ndarray:
-        """:meth:`rows` for series held as columns: ``design`` (n, k) → buffer (k, width).
-
-        Each block's input window is a contiguous stretch of a C-ordered (n, k) array,
-        so the regressors are filtered straight from the design matrix's own layout,
-        without a transposed copy, into the row layout the FFTs want.
-        """
-        return self._filter_all(design, width, as_columns=True)
-
-    def _filter_all(self, values: np.ndarray, width: int | None, *, as_columns: bool):
-        values = np.ascontiguousarray(values)
-        n, k = values.shape if as_columns else values.shape[::-1]
+        values = np.ascontiguousarray(design)
+        n, k = values.shape
         p = self.order
         n_out = n - p
         width = n_out if width is None else int(width)
@@ -118,7 +110,7 @@ class BlockFilter:
         out = np.empty((k, n_room, BLOCK))
         whole = n_out // BLOCK  # blocks whose input window lies inside the series
         if whole:
-            along, across = values.strides if as_columns else values.strides[::-1]
+            along, across = values.strides
             # block m's window: samples m B .. m B + B + p - 1 of every series, (k, B + p)
             windows = np.lib.stride_tricks.as_strided(
                 values,
@@ -129,8 +121,7 @@ class BlockFilter:
             np.matmul(windows, self.toeplitz, out=out[:, :whole].transpose(1, 0, 2))
         if whole < n_blocks:  # the last, partial block: its window runs past the end
             tail = np.zeros((k, BLOCK + p))
-            rest = values[whole * BLOCK :] if as_columns else values[:, whole * BLOCK :].T
-            tail[:, : n - whole * BLOCK] = rest.T
+            tail[:, : n - whole * BLOCK] = values[whole * BLOCK :].T
             out[:, whole] = tail @ self.toeplitz
         flat = out.reshape(k, n_room * BLOCK)
         flat[:, n_out:] = 0.0
@@ -147,18 +138,14 @@ class FilteredRows(RowsOperator):
     Parameters
     ----------
     design : ndarray, shape (n, k)
-        The regressors as columns (a design matrix), or as rows (k, n) with
-        ``as_rows=True``.
+        The regressors as columns (a design matrix).
     coefs : ndarray, shape (p,)
         AR coefficients ``a_1..a_p``.
-    as_rows : bool, default=False
-        Whether ``design`` holds the regressors as rows.
     """
 
-    def __init__(self, design: np.ndarray, coefs: np.ndarray, *, as_rows: bool = False) -> None:
+    def __init__(self, design: np.ndarray, coefs: np.ndarray) -> None:
         self.design = design
-        self.as_rows = as_rows
-        self.n_times = design.shape[1] if as_rows else design.shape[0]
+        self.n_times = design.shape[0]
         self.coefs = np.asarray(coefs, dtype=float)
         taps = np.concatenate([[1.0], -self.coefs])
         self.order = taps.size - 1
@@ -173,20 +160,17 @@ class FilteredRows(RowsOperator):
     def matvec(self, delta: np.ndarray) -> np.ndarray:
         if self._white is not None:  # formed already: the direct product is cheaper
             return self.materialize().T @ delta
-        raw = self.design.T @ delta if self.as_rows else self.design @ delta
-        return self.forward(raw)
+        return self.forward(self.design @ delta)
 
     def rmatvec(self, values: np.ndarray) -> np.ndarray:
         if self._white is not None:
             return self.materialize() @ values
-        adjoint = self._adjoint.full(values)
-        return self.design @ adjoint if self.as_rows else self.design.T @ adjoint
+        return self.design.T @ self._adjoint.full(values)
 
     def materialize(self, width: int | None = None) -> np.ndarray:
         """The whitened regressors as rows, shape (k, n - p) (a view of a buffer ``width`` wide)."""
         if self._white is None or (width is not None and self._white.shape[1] < width):
-            make = self.forward.rows if self.as_rows else self.forward.columns
-            self._white = make(self.design, width)
+            self._white = self.forward.columns(self.design, width)
         return self._white[:, : self.n_times - self.order]
 
     def buffer(self) -> np.ndarray:

@@ -28,26 +28,30 @@ def test_filtered_design_products_equal_the_whitened_rows():
     coefs = rng.uniform(-0.1, 0.1, p)
     taps = np.concatenate([[1.0], -coefs])
     white = lfilter(taps, [1.0], xrows, axis=1)[:, p:]
-    op = FilteredRows(xrows, coefs, as_rows=True)
+    op = FilteredRows(np.ascontiguousarray(xrows.T), coefs)
     delta, v = rng.standard_normal(k), rng.standard_normal(n - p)
+    assert_allclose(op.matvec(delta), white.T @ delta, atol=1e-11)
+    assert_allclose(op.rmatvec(v), white @ v, rtol=1e-11, atol=1e-9)
+    assert_allclose(op.materialize(), white, atol=1e-12)  # then the products use the rows
     assert_allclose(op.matvec(delta), white.T @ delta, atol=1e-11)
     assert_allclose(op.rmatvec(v), white @ v, rtol=1e-11, atol=1e-9)
 
 
 @pytest.mark.parametrize(("n", "order", "width"), [(36000, 19, 36000), (100, 12, 95), (50, 3, 64)])
-def test_filtered_rows_buffer_holds_lfilter_output_then_zeros(n, order, width):
-    """Source: scipy.signal.lfilter(b, [1], x, axis=1) - all rows filtered at once into a
-    zero-padded buffer: the first n - p columns are the FIR output from sample p on, the
-    rest are zero (ready for an FFT of that length)."""
+def test_filtered_columns_buffer_holds_lfilter_output_then_zeros(n, order, width):
+    """Source: scipy.signal.lfilter(b, [1], x, axis=0) - every column of a design filtered at
+    once into a zero-padded row buffer: its first n - p columns are the FIR output from sample
+    p on, the rest are zero (ready for an FFT of that length)."""
     rng = np.random.default_rng(n)
-    rows = rng.standard_normal((5, n))
+    design = rng.standard_normal((n, 5))
     taps = np.concatenate([[1.0], rng.uniform(-0.2, 0.2, order)])
-    out = BlockFilter(taps).rows(rows, width=width)
+    out = BlockFilter(taps).columns(design, width=width)
     assert out.shape == (5, width)
-    assert_allclose(out[:, : n - order], lfilter(taps, [1.0], rows, axis=1)[:, order:], atol=1e-12)
+    expected = lfilter(taps, [1.0], design, axis=0)[order:].T
+    assert_allclose(out[:, : n - order], expected, atol=1e-12)
     assert np.all(out[:, n - order :] == 0.0)
     with pytest.raises(ValueError, match="shorter"):
-        BlockFilter(taps).rows(rows, width=n - order - 1)
+        BlockFilter(taps).columns(design, width=n - order - 1)
 
 
 @pytest.mark.parametrize(
@@ -60,23 +64,3 @@ def test_block_filter_full_equals_numpy_convolve_full(n, order):
     z = rng.standard_normal(n)
     taps = np.concatenate([[1.0], rng.standard_normal(order) * 0.1])
     assert_allclose(BlockFilter(taps).full(z), np.convolve(z, taps), atol=1e-12)
-
-
-def test_filtering_columns_equals_filtering_rows():
-    """Source: scipy.signal.lfilter along the time axis of a design matrix - filtering the
-    regressors straight from their (n, k) columns gives the row buffer of the (k, n) path,
-    and the operator built on columns gives the same products as the one built on rows."""
-    rng = np.random.default_rng(5)
-    n, k, order = 3001, 6, 19
-    design = rng.standard_normal((n, k))
-    coefs = rng.uniform(-0.1, 0.1, order)
-    taps = np.concatenate([[1.0], -coefs])
-    out = BlockFilter(taps).columns(design, width=3000)
-    assert_allclose(out[:, : n - order], lfilter(taps, [1.0], design, axis=0)[order:].T, atol=1e-12)
-    assert np.all(out[:, n - order :] == 0.0)
-    by_columns = FilteredRows(design, coefs)
-    by_rows = FilteredRows(np.ascontiguousarray(design.T), coefs, as_rows=True)
-    delta, v = rng.standard_normal(k), rng.standard_normal(n - order)
-    assert_allclose(by_columns.matvec(delta), by_rows.matvec(delta), atol=1e-12)
-    assert_allclose(by_columns.rmatvec(v), by_rows.rmatvec(v), rtol=1e-12, atol=1e-10)
-    assert_allclose(by_columns.materialize(), by_rows.materialize(), atol=1e-12)
