@@ -147,6 +147,26 @@ def _leverage(gw: np.ndarray, xtwx_inv: np.ndarray) -> np.ndarray:
     return quad[0::2] + quad[1::2]
 
 
+def _noise_and_meat(g, gw, periodogram, xtwx_inv, n, side_weight, smoothing_bins):
+    """The sandwich's noise spectrum and meat from the design's spectra (shared core).
+
+    Returns ``adjust = 1 - d`` (leverage ``d`` from ``gw``), the smoothed divisor, the
+    leverage-adjusted smoothed periodogram ``Ŝ`` and ``meat = Re Σ_f side_f Ŝ_f G_f^H G_f``
+    (``side_weight`` = one-sided weight / n_fft), the meat built in frequency blocks.
+    """
+    leverage = _leverage(gw, xtwx_inv) / n
+    adjust = np.clip(1.0 - leverage, 0.0, 1.0)
+    denom = np.maximum(_daniell(adjust, smoothing_bins), 0.1 * (2 * smoothing_bins + 1))
+    noise = _daniell(periodogram, smoothing_bins) / denom
+    root_noise = np.repeat(np.sqrt(side_weight * noise), 2)
+    spectrum = _real_view(g)
+    meat = np.zeros((g.shape[0], g.shape[0]))  # Re(Σ_f V^H V Ŝ): Re·Re + Im·Im
+    for start in range(0, spectrum.shape[1], _CHUNK):  # small temporaries
+        scaled = spectrum[:, start : start + _CHUNK] * root_noise[start : start + _CHUNK]
+        meat += scaled @ scaled.T
+    return adjust, denom, noise, meat
+
+
 def spectral_sandwich(
     design: np.ndarray,
     residuals: np.ndarray,
@@ -226,18 +246,10 @@ def spectral_sandwich(
     bread = xtwx_inv if bread is None else bread
     b = bread if columns is None else bread[:, :columns]
     periodogram = np.abs(fft.rfft(psi, n=n_fft)) ** 2 / n
-    leverage = _leverage(gw, xtwx_inv) / n
-    adjust = np.clip(1.0 - leverage, 0.0, 1.0)
-    numer = _daniell(periodogram, smoothing_bins)
-    denom = np.maximum(_daniell(adjust, smoothing_bins), 0.1 * (2 * smoothing_bins + 1))
-    noise = numer / denom
+    adjust, denom, noise, meat = _noise_and_meat(
+        g, gw, periodogram, xtwx_inv, n, side / n_fft, smoothing_bins
+    )
     side_scale = np.sqrt(side / n_fft)
-    root_noise = np.repeat(side_scale * np.sqrt(noise), 2)
-    spectrum = _real_view(g)
-    meat = np.zeros((k, k))  # Re(Σ_f V^H V Ŝ) before the bread: Re·Re + Im·Im
-    for start in range(0, spectrum.shape[1], _CHUNK):  # small temporaries
-        scaled = spectrum[:, start : start + _CHUNK] * root_noise[start : start + _CHUNK]
-        meat += scaled @ scaled.T
     cov = b.T @ meat @ b
     cov = 0.5 * (cov + cov.T)
     return SpectralCovariance(
@@ -302,18 +314,12 @@ def sandwich_cov_rows(
     g = spectrum(rows)
     gw = g if weighted_rows is None else spectrum(weighted_rows)
     periodogram = np.abs(spectrum(psi)) ** 2 / n
-    leverage = _leverage(gw, xtwx_inv) / n
-    adjust = np.clip(1.0 - leverage, 0.0, 1.0)
-    noise = _daniell(periodogram, smoothing_bins) / np.maximum(
-        _daniell(adjust, smoothing_bins), 0.1 * (2 * smoothing_bins + 1)
-    )
-    side = np.full(noise.size, 2.0)
+    side = np.full(periodogram.size, 2.0)
     side[0] = 1.0
     if n_fft % 2 == 0:
         side[-1] = 1.0
-    scaled = g.view(np.float64)
-    scaled *= np.repeat(np.sqrt(side / n_fft * noise), 2)  # in place: g is done with
-    cov = xtwx_inv.T @ (scaled @ scaled.T) @ xtwx_inv
+    meat = _noise_and_meat(g, gw, periodogram, xtwx_inv, n, side / n_fft, smoothing_bins)[3]
+    cov = xtwx_inv.T @ meat @ xtwx_inv
     return 0.5 * (cov + cov.T)
 
 
