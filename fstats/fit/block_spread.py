@@ -169,28 +169,6 @@ def _filter_support(
     return offset + lo, np.convolve(values[lo:hi], taps)[: stop - offset - lo]
 
 
-def _whiten_pieces(pieces: np.ndarray, coefs: np.ndarray, kept: np.ndarray) -> np.ndarray:
-    """AR-whiten block pieces on their own support (each is zero outside one window).
-
-    Same result as :func:`fstats.fit.autoregressive.whiten` on the pieces (rows
-    ``kept``), at the cost of one series: piece j is filtered only from its first
-    non-zero sample to p samples after its last (:func:`_filter_support`, which
-    :func:`block_spreads` applies to the block windows directly).
-    """
-    taps = np.concatenate([[1.0], -np.asarray(coefs, dtype=float)])
-    n = pieces.shape[0]
-    row = np.cumsum(kept) - 1  # row of each kept sample in the output
-    out = np.zeros((row[-1] + 1 if n else 0, pieces.shape[1]))
-    nonzero = pieces != 0
-    first = nonzero.argmax(axis=0)
-    last = n - nonzero[::-1].argmax(axis=0)
-    for j in np.flatnonzero(nonzero.any(axis=0)):
-        start, values = _filter_support(pieces[first[j] : last[j], j], taps, int(first[j]), n)
-        on = kept[start : start + values.size]
-        out[row[start : start + values.size][on], j] = values[on]
-    return out
-
-
 def between_block_variance(
     amplitudes: np.ndarray, covariance: np.ndarray, shares: np.ndarray
 ) -> float:
