@@ -346,7 +346,7 @@ class RowsOperator:
     An operator gives the products an IRLS step needs, ``X δ`` (:meth:`matvec`) and
     ``X' v`` (:meth:`rmatvec`), and the rows themselves when a Gram matrix must be formed
     (:meth:`materialize`).  Other implementations can compute the products without
-    holding ``X`` (e.g. a filtered design, see :mod:`fstats.fit.estimation`).
+    holding ``X`` (e.g. a filtered design, see :mod:`fstats.fit.filtering`).
     """
 
     def __init__(self, rows: np.ndarray) -> None:
@@ -419,9 +419,10 @@ def irls_rows(
     """
     op = rows if isinstance(rows, RowsOperator) else RowsOperator(rows)
     betas = np.array(betas, dtype=float)
-    resid = np.array(residuals, dtype=float) if residuals is not None else None
-    if resid is None:
+    if residuals is None:
         resid = response - op.matvec(betas)
+    else:
+        resid = np.array(residuals, dtype=float)
     n = resid.shape[0]
     refresh = normal is None
     previous = np.inf
