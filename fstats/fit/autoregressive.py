@@ -288,6 +288,10 @@ def whitened_rows(valid: np.ndarray, order: int) -> np.ndarray:
     valid = np.asarray(valid, dtype=bool)
     if order == 0:
         return valid.copy()
+    if valid.all():  # no gaps: every sample but the first p
+        kept = np.ones(valid.shape, dtype=bool)
+        kept[:order] = False
+        return kept
     bad = np.concatenate([np.ones(order, dtype=np.int64), (~valid).astype(np.int64)])
     csum = np.concatenate([[0], np.cumsum(bad)])
     window = csum[order + 1 :] - csum[: -order - 1]

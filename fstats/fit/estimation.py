@@ -327,11 +327,7 @@ def estimate_channel(
         n_iter = step
         resid = flow0 - fitted0 if complete else np.where(valid, flow0 - fitted0, np.nan)
         ar = fit_ar(resid, max_ar_order, order=ar_order, method=ar_estimator)
-        if complete:  # every sample but the first p
-            kept = np.ones(n_times, dtype=bool)
-            kept[: ar.order] = False
-        else:
-            kept = whitened_rows(valid, ar.order)
+        kept = whitened_rows(valid, ar.order)
         if kept.sum() <= k:
             raise ChannelFitError(f"too few samples left after AR({ar.order}) whitening")
         if method == "ar-irls":
