@@ -260,11 +260,12 @@ def estimate_channel(
     AR-IRLS its bread is ``(X̃' diag(ψ'(u)) X̃)^-1`` with the bisquare derivative ψ'
     (Huber's M-estimator sandwich), and its meat the spectrum of ``ψ = w ẽ``.
 
-    Without missing samples, AR-IRLS never whitens the whole design during its rounds:
-    round 1 whitens it once (block-Toeplitz FIR, :mod:`fstats.fit.filtering`) to
-    factor ``X̃'WX̃``, later rounds take their IRLS steps through the filtered-design
-    operator with the previous factor and an exact line search, and the final filter's
-    rows are formed once for the covariance.  Early rounds solve their IRLS loosely
+    Without missing samples, AR-IRLS never whitens the whole design in double
+    precision during its rounds: round 1 factors a single-precision ``X̃'WX̃``
+    (block-Toeplitz FIR, :mod:`fstats.fit.filtering`) as its preconditioner, every
+    round takes its IRLS steps through the filtered-design operator with that or the
+    previous round's factor and an exact line search, and the final filter's rows are
+    formed once, in double precision, for the covariance.  Early rounds solve their IRLS loosely
     (their AR filter is provisional); the path changes, the fixed point does not.
     """
     if method not in METHODS:

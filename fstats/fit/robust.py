@@ -114,6 +114,7 @@ class NormalEquations:
         norms[~(norms > 0)] = 1.0
         self.norms = norms
         self.factor = None
+        self.condition = np.inf  # 1-norm condition of the column-scaled Gram (Cholesky only)
         self._inv = None
         self._svd = None
         scaled = gram / np.outer(norms, norms)
@@ -122,6 +123,7 @@ class NormalEquations:
             inv = linalg.cho_solve(factor, np.eye(k), check_finite=False)
             cond = np.abs(scaled).sum(axis=0).max() * np.abs(inv).sum(axis=0).max()
             if np.isfinite(cond) and cond <= MAX_GRAM_CONDITION:
+                self.condition = float(cond)
                 self.factor = factor
                 self._inv = inv / np.outer(norms, norms)
         except (np.linalg.LinAlgError, ValueError):
@@ -364,6 +366,19 @@ class RowsOperator:
         """The rows, shape (k, n)."""
         return self.rows
 
+    def factor(self, weights: np.ndarray) -> NormalEquations:
+        """``X'WX`` at the weights ``w`` (shape (n,)), factored exactly (rows kept for fallback)."""
+        root_rows = self.materialize() * np.sqrt(weights)
+        return NormalEquations(root_rows @ root_rows.T, root_rows)
+
+    def preconditioner(self, weights: np.ndarray) -> NormalEquations | None:
+        """A cheaper approximate factor of ``X'WX`` for the first steps, or None (none cheaper).
+
+        An approximate factor only changes how fast the steps shrink: :func:`irls_rows`
+        scales its steps by the exact line search, so the fixed point is the same.
+        """
+        return None
+
 
 def irls_rows(
     response: np.ndarray | None,
@@ -410,7 +425,9 @@ def irls_rows(
     Here ``X'WX`` is factored at the first step's weights (or taken from ``normal``)
     and kept while the steps shrink by at least half each time (refactored at the
     current weights otherwise), so a step costs two matrix-vector products, the MAD
-    and the weights.  With a kept factor ``N`` the direction ``δ = N^-1 X'W e`` is
+    and the weights.  The first factor may be the operator's cheaper approximation
+    (:meth:`RowsOperator.preconditioner`, e.g. a single-precision Gram); a refactoring
+    after it is exact.  With a kept factor ``N`` the direction ``δ = N^-1 X'W e`` is
     scaled by the exact line search of the weighted least-squares problem at the
     current weights, ``α = δ'X'We / ‖√W Xδ‖²`` (``α = 1`` when ``N = X'WX``), so a
     factor from related weights or a related filter only slows the steps a little.
@@ -425,6 +442,7 @@ def irls_rows(
         resid = np.array(residuals, dtype=float)
     n = resid.shape[0]
     refresh = normal is None
+    cheap = refresh  # the first factor may be the operator's approximate one
     previous = np.inf
     converged = False
     weights = np.ones(n)
@@ -447,16 +465,17 @@ def irls_rows(
         np.subtract(1.0, weights, out=weights)
         np.maximum(weights, 0.0, out=weights)
         weights *= weights
-        fresh = refresh
+        fresh = False
         if refresh:
-            explicit = op.materialize()
-            root_rows = explicit * np.sqrt(weights)
-            normal = NormalEquations(root_rows @ root_rows.T, root_rows)
+            normal = op.preconditioner(weights) if cheap else None
+            cheap = False  # a later refresh (steps stopped shrinking) is exact
+            if normal is None:
+                normal, fresh = op.factor(weights), True
         weighted = weights * resid
         gradient = op.rmatvec(weighted)
         delta = normal.solve(gradient)
         change = op.matvec(delta)
-        if not fresh:  # exact line search at the current weights (1 for a fresh factor)
+        if not fresh:  # exact line search at the current weights (1 for an exact factor)
             curvature = float(np.dot(weights * change, change))
             if curvature > 0:
                 alpha = float(np.dot(gradient, delta)) / curvature

@@ -64,3 +64,41 @@ def test_block_filter_full_equals_numpy_convolve_full(n, order):
     z = rng.standard_normal(n)
     taps = np.concatenate([[1.0], rng.standard_normal(order) * 0.1])
     assert_allclose(BlockFilter(taps).full(z), np.convolve(z, taps), atol=1e-12)
+
+
+def test_filtered_columns_in_single_precision_follow_lfilter():
+    """Source: scipy.signal.lfilter(b, [1], x, axis=0) in double precision - a float32
+    design is filtered in float32 (the cheap preconditioner's path): the output stays
+    float32 and agrees with the double-precision FIR to single-precision rounding."""
+    rng = np.random.default_rng(31)
+    n, order = 4000, 19
+    design = rng.standard_normal((n, 4))
+    taps = np.concatenate([[1.0], rng.uniform(-0.2, 0.2, order)])
+    out = BlockFilter(taps).columns(design.astype(np.float32), width=n)
+    assert out.dtype == np.float32
+    expected = lfilter(taps, [1.0], design, axis=0)[order:].T
+    assert_allclose(out[:, : n - order], expected, rtol=0, atol=2e-5 * np.abs(expected).max())
+    assert np.all(out[:, n - order :] == 0.0)
+
+
+def test_preconditioner_approximates_the_weighted_whitened_gram():
+    """Source: scipy.signal.lfilter (explicitly whitened rows) - the single-precision
+    X̃'WX̃ behind the first IRLS factor agrees with the double-precision Gram of the
+    whitened rows to about 1e-6 relative, and a design too ill-conditioned for single
+    precision gets no preconditioner (None: the caller then forms the exact factor)."""
+    rng = np.random.default_rng(32)
+    n, p = 6000, 12
+    coefs = rng.uniform(-0.1, 0.1, p)
+    taps = np.concatenate([[1.0], -coefs])
+    t = np.arange(n) / n
+    design = np.column_stack([np.ones(n), t, rng.standard_normal((n, 3))])
+    weights = rng.uniform(0.0, 1.0, n - p)
+    op = FilteredRows(design, coefs)
+    normal = op.preconditioner(weights)
+    white = lfilter(taps, [1.0], design, axis=0)[p:]
+    exact = white.T @ (weights[:, None] * white)
+    assert normal is not None
+    assert_allclose(normal.inverse(), np.linalg.inv(exact), rtol=1e-4)
+    assert op._white is None  # the double-precision rows were not formed for it
+    near = np.column_stack([design, design[:, 2] + 1e-4 * rng.standard_normal(n)])
+    assert FilteredRows(near, coefs).preconditioner(weights[: n - p]) is None

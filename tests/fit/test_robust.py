@@ -155,3 +155,30 @@ def test_irls_rows_with_a_foreign_factor_matches_statsmodels_rlm():
     plain = irls_rows(y, rows, start, tol=1e-12, max_iter=500)
     viaop = irls_rows(y, RowsOperator(rows), start, tol=1e-12, max_iter=500)
     assert_allclose(viaop.betas, plain.betas, rtol=1e-13)
+
+
+def test_irls_rows_through_the_filtered_operator_matches_statsmodels_rlm():
+    """Source: statsmodels.api.RLM(ỹ, X̃, M=TukeyBiweight()).fit(scale_est='mad') on rows
+    whitened with scipy.signal.lfilter - with no factor given, the filtered-design operator
+    takes its first steps with the single-precision preconditioner (and the line search),
+    and the IRLS still ends at the double-precision M-estimate, weights and scale."""
+    from scipy.signal import lfilter
+
+    from fstats.fit.filtering import FilteredRows
+
+    rng = np.random.default_rng(5)
+    n, p = 3000, 15
+    x = np.column_stack([np.ones(n), np.linspace(-1, 1, n), rng.standard_normal((n, 2))])
+    coefs = rng.uniform(-0.1, 0.1, p)
+    taps = np.concatenate([[1.0], -coefs])
+    y = x @ [1.0, 0.5, 2.0, -0.5] + rng.standard_normal(n)
+    y[rng.choice(n, 60, replace=False)] += rng.choice([-15, 15], 60)
+    yw, xw = lfilter(taps, [1.0], y)[p:], lfilter(taps, [1.0], x, axis=0)[p:]
+    ref = sm.RLM(yw, xw, M=TukeyBiweight(c=4.685)).fit(conv="coefs", tol=1e-12, maxiter=500)
+    start = np.linalg.lstsq(xw, yw, rcond=None)[0]
+    op = FilteredRows(x, coefs)
+    ours = irls_rows(None, op, start, tol=1e-12, max_iter=500, residuals=yw - xw @ start)
+    assert ours.converged
+    assert_allclose(ours.betas, ref.params, rtol=1e-6)
+    assert_allclose(ours.weights, ref.weights, atol=1e-6)
+    assert_allclose(ours.scale, ref.scale, rtol=1e-6)
