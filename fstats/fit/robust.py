@@ -342,6 +342,30 @@ def irls(
     )
 
 
+#: Largest Anderson mixing coefficient |γ| taken; a larger one (the last two steps
+#: nearly alike, or the iteration not contracting) falls back to the plain step.
+_MIX_LIMIT: float = 5.0
+
+
+def _anderson_step(delta, change, last_delta, last_change, last_taken, last_taken_change):
+    """The depth-one Anderson mix of the plain step ``delta`` (see :func:`irls_rows`).
+
+    ``change``/``last_change`` are the fitted-value changes of this and the previous
+    plain step, ``last_taken``/``last_taken_change`` the step taken last time and its
+    change; returns the step to take and its fitted-value change (the plain step when
+    the mixing coefficient is not finite or exceeds :data:`_MIX_LIMIT`).
+    """
+    moved = change - last_change
+    denom = float(np.dot(moved, moved))
+    if not denom > 0:
+        return delta, change
+    gamma = float(np.dot(change, moved)) / denom
+    if not (np.isfinite(gamma) and abs(gamma) < _MIX_LIMIT):
+        return delta, change
+    taken = delta - gamma * (last_taken + delta - last_delta)
+    return taken, change - gamma * (last_taken_change + moved)
+
+
 class RowsOperator:
     """Regressors held as explicit rows, shape (k, n): the operator :func:`irls_rows` uses.
 
@@ -391,6 +415,7 @@ def irls_rows(
     normal: NormalEquations | None = None,
     residuals: np.ndarray | None = None,
     scale_guess: float | None = None,
+    accelerate: bool = True,
 ) -> IRLSResult:
     """The Tukey-bisquare M-estimate of :func:`irls`, regressors as rows, few Gram matrices.
 
@@ -413,6 +438,9 @@ def irls_rows(
     scale_guess : float, optional
         A residual scale near the first step's MAD (e.g. a related fit's); only makes
         finding that MAD faster, the value is the same.
+    accelerate : bool, default=True
+        Mix each step with the previous one (Anderson acceleration of depth one, see
+        Notes); the fixed point and the stopping rule are the same without it.
 
     Returns
     -------
@@ -433,6 +461,17 @@ def irls_rows(
     factor from related weights or a related filter only slows the steps a little.
     The iteration stops at the same fixed point ``X'W e = 0`` (weights and MAD scale
     recomputed every step) with the same stopping rule, ``||X Δβ|| < tol ||e||``.
+
+    The reweighting itself converges only linearly (the weights and the scale move
+    with every step), so steps with a kept factor are Anderson-accelerated with depth
+    one (Anderson 1965; Walker & Ni 2011, SIAM J. Numer. Anal. 49:1715): with ``f_k``
+    the fitted-value change ``X δ_k`` of the plain step at ``β_k``, the step taken is
+    ``δ_k - γ (β_k - β_{k-1} + δ_k - δ_{k-1})`` with
+    ``γ = f_k'(f_k - f_{k-1}) / ‖f_k - f_{k-1}‖²`` (the mix of the last two steps
+    with the smallest change), its fitted-value change formed from the same vectors
+    without another product; ``|γ| ≥ 5`` keeps the plain step.  The stopping rule
+    tests the plain step, which is taken as the last one, so the fixed point does not
+    depend on the mixing.
     """
     op = rows if isinstance(rows, RowsOperator) else RowsOperator(rows)
     betas = np.array(betas, dtype=float)
@@ -443,6 +482,7 @@ def irls_rows(
     n = resid.shape[0]
     refresh = normal is None
     cheap = refresh  # the first factor may be the operator's approximate one
+    memory = None
     previous = np.inf
     converged = False
     weights = np.ones(n)
@@ -483,8 +523,12 @@ def irls_rows(
                     delta *= alpha
                     change *= alpha
         size = np.linalg.norm(change) / max(np.linalg.norm(resid), 1e-300)
-        betas = betas + delta
-        resid = resid - change
+        taken, taken_change = delta, change
+        if accelerate and memory is not None and not fresh and size >= tol:
+            taken, taken_change = _anderson_step(delta, change, *memory)
+        memory = (delta, change, taken, taken_change)
+        betas = betas + taken
+        resid = resid - taken_change
         if size < tol:
             converged = True
             break
