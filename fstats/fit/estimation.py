@@ -192,7 +192,8 @@ _FIRST_ROUND_TOL = 1e-2
 
 #: Later rounds solve their IRLS to this share of the previous round's change (at least
 #: to a tenth of ``tol``): early AR filters are provisional, so their robust fits need
-#: not be exact; the last round is always solved to ``0.1 tol``.
+#: not be exact.  The last round's IRLS tolerance is at most ``0.1 tol`` when the plain
+#: change rule stops the rounds, at most ``tol`` when the extrapolated rule does.
 _ROUND_TOL_SHARE = 1e-3
 
 
@@ -235,7 +236,8 @@ def estimate_channel(
         Stop when the fitted values change by less than ``tol`` times the residual norm
         from one AR round to the next (AR-IRLS also stops when the changes still to
         come, extrapolated geometrically from the last two rounds, add up to less than
-        ``tol / 2``; its last round's IRLS is always solved to ``0.1 tol``).
+        ``tol / 2``; the last round's IRLS is then solved to a tolerance of at most
+        ``tol``, and to at most ``0.1 tol`` when the first rule stops).
     tukey_c : float, default=4.685
         Bisquare tuning constant.
 
