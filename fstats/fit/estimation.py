@@ -267,8 +267,9 @@ def estimate_channel(
     (block-Toeplitz FIR, :mod:`fstats.fit.filtering`) as its preconditioner, every
     round takes its IRLS steps through the filtered-design operator with that or the
     previous round's factor and an exact line search, and the final filter's rows are
-    formed once, in double precision, for the covariance.  Early rounds solve their IRLS loosely
-    (their AR filter is provisional); the path changes, the fixed point does not.
+    formed once, in double precision, for the covariance.  Early rounds solve their
+    IRLS loosely (their AR filter is provisional); the path changes, the fixed point
+    does not.
     """
     if method not in METHODS:
         raise ValueError(f"method must be one of {METHODS}, not {method!r}")

@@ -464,9 +464,9 @@ def irls_rows(
 
     The reweighting itself converges only linearly (the weights and the scale move
     with every step), so steps with a kept factor are Anderson-accelerated with depth
-    one (Anderson 1965; Walker & Ni 2011, SIAM J. Numer. Anal. 49:1715): with ``f_k``
-    the fitted-value change ``X δ_k`` of the plain step at ``β_k``, the step taken is
-    ``δ_k - γ (β_k - β_{k-1} + δ_k - δ_{k-1})`` with
+    one (Anderson 1965; Walker & Ni 2011, SIAM J. Numer. Anal. 49:1715; citations
+    recalled from memory): with ``f_k`` the fitted-value change ``X δ_k`` of the plain
+    step at ``β_k``, the step taken is ``δ_k - γ (β_k - β_{k-1} + δ_k - δ_{k-1})`` with
     ``γ = f_k'(f_k - f_{k-1}) / ‖f_k - f_{k-1}‖²`` (the mix of the last two steps
     with the smallest change), its fitted-value change formed from the same vectors
     without another product; ``|γ| ≥ 5`` keeps the plain step.  The stopping rule
