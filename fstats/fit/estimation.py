@@ -11,7 +11,8 @@ from fstats.fit.autoregressive import fit_ar, whiten, whitened_rows
 from fstats.fit.covariance import SpectralCovariance, spectral_sandwich
 from fstats.fit.filtering import FilteredRows
 from fstats.fit.ols import gram_rank, ordinary_least_squares
-from fstats.fit.robust import TUKEY_C, NormalEquations, RowsOperator, irls_rows
+from fstats.fit.robust import TUKEY_C, NormalEquations
+from fstats.fit.rows_irls import RowsOperator, irls_rows
 from fstats.fit.whitener import Whitener
 
 __all__ = ["METHODS", "ChannelEstimate", "ChannelFitError", "estimate_channel"]

@@ -19,7 +19,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from fstats.fit.robust import NormalEquations, RowsOperator
+from fstats.fit.robust import NormalEquations
+from fstats.fit.rows_irls import RowsOperator
 
 __all__ = ["BLOCK", "PRECONDITIONER_MAX_CONDITION", "BlockFilter", "FilteredRows"]
 

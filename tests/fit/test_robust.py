@@ -1,4 +1,4 @@
-"""Tests of fstats.fit.robust (Tukey bisquare weights, MAD scale, IRLS)."""
+"""Tests of fstats.fit.robust (Tukey bisquare weights, MAD scale, IRLS) and fstats.fit.rows_irls."""
 
 import numpy as np
 import pytest
@@ -11,14 +11,12 @@ from fstats.fit.robust import (
     MAD_NORMAL,
     TUKEY_C,
     NormalEquations,
-    RowsOperator,
-    _mad_near,
     irls,
-    irls_rows,
     mad_scale,
     tukey_bisquare_weights,
     weighted_least_squares,
 )
+from fstats.fit.rows_irls import RowsOperator, _mad_near, irls_rows
 
 
 def test_tukey_weights_match_statsmodels():
