@@ -176,7 +176,6 @@ def irls_rows(
         resid = np.array(residuals, dtype=float)
     n = resid.shape[0]
     refresh = normal is None
-    cheap = refresh  # the first factor may be the operator's approximate one
     memory = None
     previous = np.inf
     converged = False
@@ -202,8 +201,9 @@ def irls_rows(
         weights *= weights
         fresh = False
         if refresh:
-            normal = op.preconditioner(weights) if cheap else None
-            cheap = False  # a later refresh (steps stopped shrinking) is exact
+            # the first factor may be the operator's approximate one; a later refresh
+            # (the steps stopped shrinking) is exact
+            normal = op.preconditioner(weights) if step == 1 else None
             if normal is None:
                 normal, fresh = op.factor(weights), True
         weighted = weights * resid
