@@ -187,10 +187,9 @@ def irls_rows(
         scale = _mad_near(resid, scale)
         if not scale > 0:
             weights = np.ones(n)
-            explicit = op.materialize()
-            normal = NormalEquations(explicit @ explicit.T, explicit)
+            normal = op.factor(weights)
             target = resid + op.matvec(betas)  # the response
-            betas = normal.solve(explicit @ target) if normal.cholesky else normal.lstsq(target)
+            betas = normal.solve(op.rmatvec(target)) if normal.cholesky else normal.lstsq(target)
             resid = target - op.matvec(betas)
             converged = True
             break
