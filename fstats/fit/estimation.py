@@ -92,15 +92,11 @@ class ChannelEstimate:
         return self.spectral.contrast_dof(weights)
 
 
-def _prepare(
-    flow: np.ndarray, design: np.ndarray, *, rows_if_complete: bool = True
-) -> tuple[np.ndarray, np.ndarray | None, np.ndarray]:
+def _prepare(flow: np.ndarray, design: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Valid rows, the joint series ``[y; X']`` as rows (zero on invalid rows), their Gram.
 
-    With ``rows_if_complete=False`` and no missing samples the rows are not formed (None)
-    and the Gram comes from the design as it is.  Raises :class:`ChannelFitError` for
-    all-NaN or constant flow, too few samples and a rank-deficient design (rank from the
-    column-scaled Gram, as ``design_rank``).
+    Raises :class:`ChannelFitError` for all-NaN or constant flow, too few samples and a
+    rank-deficient design (rank from the column-scaled Gram, as ``design_rank``).
     """
     valid = np.isfinite(flow)
     if not np.isfinite(design).all():
@@ -113,14 +109,7 @@ def _prepare(
         raise ChannelFitError(f"{n_valid} valid samples for {k} regressors")
     if np.ptp(flow[valid]) == 0:
         raise ChannelFitError("constant flow (zero variance)")
-    if n_valid == flow.shape[0] and not rows_if_complete:
-        gram = np.empty((k + 1, k + 1))
-        gram[1:, 1:] = design.T @ design
-        gram[1:, 0] = gram[0, 1:] = design.T @ flow
-        gram[0, 0] = flow @ flow
-        rows = None
-    else:
-        rows, gram = _joint_rows(flow, design, valid)
+    rows, gram = _joint_rows(flow, design, valid)
     rank = gram_rank(gram[1:, 1:])
     if rank < k:
         raise ChannelFitError(f"design is rank deficient (rank {rank} < {k} columns)")
@@ -276,7 +265,7 @@ def estimate_channel(
         raise ValueError(f"method must be one of {METHODS}, not {method!r}")
     flow = np.asarray(flow, dtype=float)
     design = np.asarray(design, dtype=float)
-    valid, rows, gram = _prepare(flow, design, rows_if_complete=method != "ar-irls")
+    valid, rows, gram = _prepare(flow, design)
     n_times, k = design.shape
     nan = np.full(n_times, np.nan)
     if method == "ols":
@@ -300,21 +289,19 @@ def estimate_channel(
             ar_order_bic=np.zeros(0),
         )
     complete = bool(valid.all())
-    fast = rows is None  # AR-IRLS without gaps: filter the design, no FFT whitener
+    # AR-IRLS without gaps: filter the design, no FFT whitener
+    fast = complete and method == "ar-irls"
     normal0 = None
     try:
         normal0 = NormalEquations(gram[1:, 1:])
     except np.linalg.LinAlgError:  # ill-conditioned: least squares from the rows
-        if fast:
-            rows, gram = _joint_rows(flow, design, valid)
-            fast = False
+        fast = False
         betas, _ = _solve_joint(rows, gram)
     else:
         betas = normal0.solve(gram[1:, 0])
-    if fast:
-        flow0, xrows = flow, design.T  # (k, n) view of the design, not a copy
-    else:
-        flow0, xrows = rows[0], rows[1:]  # zero on invalid rows, which then add nothing
+    # zero on invalid rows, which then add nothing; the design's rows are C-contiguous,
+    # the layout in which the many products X δ and X' v of the IRLS steps are fastest
+    flow0, xrows = rows[0], rows[1:]
     if method == "ar-irls" and normal0 is not None:
         betas = _robust_start(flow0, xrows, valid, betas, normal0, tukey_c)
     fitted0 = xrows.T @ betas
@@ -337,7 +324,7 @@ def estimate_channel(
             raise ChannelFitError(f"too few samples left after AR({ar.order}) whitening")
         if method == "ar-irls":
             if fast:  # whiten the regressors only when a Gram matrix needs them
-                operator = FilteredRows(design, ar.coefs)
+                operator = FilteredRows(design, ar.coefs, rows=xrows)
                 start = operator.filter(flow0 - fitted0)
                 fit = irls_rows(
                     None, operator, betas, c=tukey_c, tol=inner_tol, normal=preconditioner,
@@ -354,7 +341,7 @@ def estimate_channel(
             new, weights_w, scale_w = fit.betas, fit.weights, fit.scale
         else:
             new, normal = _whitened_ols(whitener, ar.coefs)
-        new_fitted = design @ new if fast else xrows.T @ new
+        new_fitted = xrows.T @ new
         change = np.linalg.norm(new_fitted - fitted0) / max(
             np.linalg.norm(flow0 - new_fitted), 1e-300
         )
@@ -381,7 +368,7 @@ def estimate_channel(
             design_fft = fft.rfft(operator.buffer()[:, :n_fft], axis=1)
             # the raw rows are not needed any more: free them before the covariance
             # (a fit's peak memory decides how much the allocator maps afresh each time)
-            operator.design = None
+            operator.design = operator.rows = None
             del rows, xrows, flow0
         else:
             yw, xw = white[0], white[1:]

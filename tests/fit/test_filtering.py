@@ -18,17 +18,19 @@ def test_block_filter_equals_numpy_convolve(n, order):
     assert_allclose(BlockFilter(taps)(z), np.convolve(z, taps, mode="valid"), atol=1e-12)
 
 
-def test_filtered_design_products_equal_the_whitened_rows():
+@pytest.mark.parametrize("with_rows", [False, True])
+def test_filtered_design_products_equal_the_whitened_rows(with_rows):
     """Source: scipy.signal.lfilter(b, [1], x) (the FIR whitening filter, first p samples
     dropped as in Cochrane-Orcutt) - the operator's X̃δ and X̃'v, computed from one
-    filtered series each, equal the products with the explicitly whitened design."""
+    filtered series each, equal the products with the explicitly whitened design, whether
+    the products read the design's columns or a row copy of it."""
     rng = np.random.default_rng(21)
     n, k, p = 5000, 6, 19
     xrows = rng.standard_normal((k, n))
     coefs = rng.uniform(-0.1, 0.1, p)
     taps = np.concatenate([[1.0], -coefs])
     white = lfilter(taps, [1.0], xrows, axis=1)[:, p:]
-    op = FilteredRows(np.ascontiguousarray(xrows.T), coefs)
+    op = FilteredRows(np.ascontiguousarray(xrows.T), coefs, rows=xrows if with_rows else None)
     delta, v = rng.standard_normal(k), rng.standard_normal(n - p)
     assert_allclose(op.matvec(delta), white.T @ delta, atol=1e-11)
     assert_allclose(op.rmatvec(v), white @ v, rtol=1e-11, atol=1e-9)
