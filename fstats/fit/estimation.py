@@ -13,6 +13,7 @@ from fstats.fit.filtering import FilteredRows
 from fstats.fit.ols import gram_rank, ordinary_least_squares
 from fstats.fit.robust import TUKEY_C, NormalEquations
 from fstats.fit.rows_irls import RowsOperator, irls_rows
+from fstats.fit.scratch import scratch
 from fstats.fit.whitener import Whitener
 
 __all__ = ["METHODS", "ChannelEstimate", "ChannelFitError", "estimate_channel"]
@@ -121,7 +122,7 @@ def _joint_rows(
 ) -> tuple[np.ndarray, np.ndarray]:
     """``[y; X']`` as rows, zero on invalid samples, and its Gram matrix."""
     k = design.shape[1]
-    rows = np.empty((k + 1, flow.shape[0]))
+    rows = scratch("joint_rows", (k + 1, flow.shape[0]))
     rows[0] = flow
     for start in range(0, flow.shape[0], 4096):  # transpose in cache-sized blocks
         rows[1:, start : start + 4096] = design[start : start + 4096].T
@@ -373,7 +374,7 @@ def estimate_channel(
         else:
             yw, xw = white[0], white[1:]
         # √W X̃ in a buffer zero-padded to the FFT length, for the sandwich's DFT of it
-        padded = np.empty((k, n_fft))
+        padded = scratch("weighted_rows", (k, n_fft))
         padded[:, n_kept:] = 0.0
         root_rows = np.multiply(xw, np.sqrt(weights_w), out=padded[:, :n_kept])
         xtwx = root_rows @ root_rows.T
@@ -402,7 +403,9 @@ def estimate_channel(
         )
         bread, weighted_fft = xtwx_inv, None
         if method == "ar-irls":
-            weighted_fft = fft.rfft(padded, axis=1)  # DFT(√W X̃); the buffer is free again
+            weighted_fft = np.fft.rfft(
+                padded, axis=1, out=scratch("weighted_fft", (k, n_fft // 2 + 1), complex)
+            )  # DFT(√W X̃); the buffer is free again
             bread = _bisquare_bread(
                 xw, ew, scale_w, tukey_c, xtwx_inv, normal.norms, work=padded[:, : xw.shape[1]]
             )
