@@ -28,7 +28,7 @@ class ChannelFitError(ValueError):
 
 @dataclass(frozen=True, eq=False)
 class ChannelEstimate:
-    """Raw estimation output for one channel (see :class:`fstats.fit.glm.ChannelFit`).
+    """Raw estimation output for one channel (see :class:`fstats.fit.subject_fit.ChannelFit`).
 
     Parameters
     ----------

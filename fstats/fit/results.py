@@ -110,13 +110,13 @@ def _row(fit, channel, term, kind, condition, test=None, *, ar_order=np.nan, sta
 
 
 def results_table(fit) -> pd.DataFrame:
-    """Tidy results of a :class:`~fstats.fit.glm.SubjectFit`, one row per channel × term.
+    """Tidy results of a :class:`~fstats.fit.subject_fit.SubjectFit`, one row per channel × term.
 
     Rows: every fitted regressor (task columns carry their condition, nuisance columns
     the condition ``""``), then every design contrast (``term_kind`` ``"contrast"``
     for t, ``"F"`` for F).  A failed channel gets a row per task regressor and
     contrast with NaN numbers and the reason in ``status``.  Percent columns are
-    ``100 × value / baseline flow`` (see :class:`~fstats.fit.glm.ChannelFit`).
+    ``100 × value / baseline flow`` (see :class:`~fstats.fit.subject_fit.ChannelFit`).
 
     Returns
     -------
