@@ -5,6 +5,7 @@ import threading
 import numpy as np
 from numpy.testing import assert_array_equal
 
+from fstats.fit import scratch as scratch_module
 from fstats.fit.estimation import estimate_channel
 from fstats.fit.scratch import release_scratch, scratch
 
@@ -23,6 +24,19 @@ def test_scratch_reuses_one_buffer_per_name_and_grows():
     assert z.dtype == np.complex128 and not np.shares_memory(z, c)
     release_scratch()
     assert not np.shares_memory(scratch("a", (2, 5)), c)
+
+
+def test_scratch_keeps_no_more_than_the_limit(monkeypatch):
+    """A request that would take the thread's buffers past the limit gets a fresh array
+    that is not kept (the next request does not share it); smaller ones are still kept."""
+    monkeypatch.setattr(scratch_module, "SCRATCH_LIMIT_BYTES", 1000 * 8)
+    release_scratch()
+    kept = scratch("small", (600,))
+    assert np.shares_memory(kept, scratch("small", (600,)))
+    big = scratch("big", (500,))  # 600 + 500 doubles > 1000
+    assert not np.shares_memory(big, scratch("big", (500,)))
+    assert np.shares_memory(kept, scratch("small", (600,)))
+    release_scratch()
 
 
 def test_scratch_buffers_are_per_thread():
