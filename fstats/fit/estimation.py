@@ -367,8 +367,8 @@ def estimate_channel(
             xw = operator.materialize(width=n_fft)
             yw = operator.filter(flow0)
             design_fft = fft.rfft(operator.buffer()[:, :n_fft], axis=1)
-            # the raw rows are not needed any more: free them before the covariance
-            # (a fit's peak memory decides how much the allocator maps afresh each time)
+            # the raw rows are not needed any more (the joint rows are a scratch buffer,
+            # kept for the next fit; the references go so nothing reads them by mistake)
             operator.design = operator.rows = None
             del rows, xrows, flow0
         else:
