@@ -325,7 +325,7 @@ def estimate_channel(
             raise ChannelFitError(f"too few samples left after AR({ar.order}) whitening")
         if method == "ar-irls":
             if fast:  # whiten the regressors only when a Gram matrix needs them
-                operator = FilteredRows(design, ar.coefs, rows=xrows)
+                operator = FilteredRows(design, ar.coefs, design_rows=xrows)
                 start = operator.filter(flow0 - fitted0)
                 fit = irls_rows(
                     None, operator, betas, c=tukey_c, tol=inner_tol, normal=preconditioner,
@@ -369,7 +369,7 @@ def estimate_channel(
             design_fft = fft.rfft(operator.buffer()[:, :n_fft], axis=1)
             # the raw rows are not needed any more (the joint rows are a scratch buffer,
             # kept for the next fit; the references go so nothing reads them by mistake)
-            operator.design = operator.rows = None
+            operator.design = operator.design_rows = None
             del rows, xrows, flow0
         else:
             yw, xw = white[0], white[1:]

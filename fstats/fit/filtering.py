@@ -160,17 +160,18 @@ class FilteredRows(RowsOperator):
         The regressors as columns (a design matrix).
     coefs : ndarray, shape (p,)
         AR coefficients ``a_1..a_p``.
-    rows : ndarray, shape (k, n), optional
-        The same regressors as C-contiguous rows, if the caller has them: the products
-        ``X δ`` and ``X' v`` then read that layout, in which BLAS's matrix-vector
-        products with few columns are faster (the filtering still reads ``design``).
+    design_rows : ndarray, shape (k, n), optional
+        The same (unwhitened) regressors as C-contiguous rows, if the caller has them:
+        the products behind ``X̃ δ`` and ``X̃' v`` then read that layout, in which BLAS's
+        matrix-vector products with few columns are faster (the filtering still reads
+        ``design``).
     """
 
     def __init__(
-        self, design: np.ndarray, coefs: np.ndarray, rows: np.ndarray | None = None
+        self, design: np.ndarray, coefs: np.ndarray, design_rows: np.ndarray | None = None
     ) -> None:
         self.design = design
-        self.rows = design.T if rows is None else rows
+        self.design_rows = design.T if design_rows is None else design_rows
         self.n_times = design.shape[0]
         self.coefs = np.asarray(coefs, dtype=float)
         taps = np.concatenate([[1.0], -self.coefs])
@@ -186,12 +187,12 @@ class FilteredRows(RowsOperator):
     def matvec(self, delta: np.ndarray) -> np.ndarray:
         if self._white is not None:  # formed already: the direct product is cheaper
             return self.materialize().T @ delta
-        return self.forward(self.rows.T @ delta)
+        return self.forward(self.design_rows.T @ delta)
 
     def rmatvec(self, values: np.ndarray) -> np.ndarray:
         if self._white is not None:
             return self.materialize() @ values
-        return self.rows @ self._adjoint.full(values)
+        return self.design_rows @ self._adjoint.full(values)
 
     def materialize(self, width: int | None = None) -> np.ndarray:
         """The whitened regressors as rows, shape (k, n - p) (a view of a buffer ``width`` wide)."""

@@ -30,7 +30,9 @@ def test_filtered_design_products_equal_the_whitened_rows(with_rows):
     coefs = rng.uniform(-0.1, 0.1, p)
     taps = np.concatenate([[1.0], -coefs])
     white = lfilter(taps, [1.0], xrows, axis=1)[:, p:]
-    op = FilteredRows(np.ascontiguousarray(xrows.T), coefs, rows=xrows if with_rows else None)
+    op = FilteredRows(
+        np.ascontiguousarray(xrows.T), coefs, design_rows=xrows if with_rows else None
+    )
     delta, v = rng.standard_normal(k), rng.standard_normal(n - p)
     assert_allclose(op.matvec(delta), white.T @ delta, atol=1e-11)
     assert_allclose(op.rmatvec(v), white @ v, rtol=1e-11, atol=1e-9)
